@@ -1,0 +1,1 @@
+"""The ``warmstart`` command line: a thin click layer over :mod:`warmstart`."""

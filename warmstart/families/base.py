@@ -1,0 +1,69 @@
+"""The :class:`Family` record: a scikit-learn model family and its search spaces."""
+
+from __future__ import annotations
+
+import importlib
+from dataclasses import dataclass
+from typing import Any
+
+from warmstart.spaces import SearchSpace
+
+TASKS = ("classification", "regression")
+
+
+@dataclass(frozen=True)
+class Family:
+    """A model family with one estimator and one search space per task.
+
+    Parameters
+    ----------
+    name : str
+        The family's name in the history and on the command line.
+    description : str
+        One line for ``warmstart families``.
+    estimators : dict
+        Task -> dotted path of the scikit-learn estimator class.
+    spaces : dict
+        Task -> :class:`SearchSpace`; parameter names are the estimator's keywords.
+    needs_scaling : bool
+        Whether the model is sensitive to feature scale (distance or margin based), so
+        its pipeline standardises numeric columns.
+    fixed : dict
+        Task -> keyword arguments always passed (not tuned), e.g. ``probability``.
+    seeded : bool
+        Whether the estimator takes ``random_state``.
+    """
+
+    name: str
+    description: str
+    estimators: dict[str, str]
+    spaces: dict[str, SearchSpace]
+    needs_scaling: bool = False
+    fixed: dict[str, dict[str, Any]] | None = None
+    seeded: bool = False
+
+    def space(self, task: str) -> SearchSpace:
+        return self.spaces[task]
+
+    def estimator_class(self, task: str) -> type:
+        module, _, cls = self.estimators[task].rpartition(".")
+        return getattr(importlib.import_module(module), cls)
+
+    def make_estimator(self, task: str, config: dict[str, Any], seed: int | None = None):
+        """Return an unfitted estimator for ``task`` with ``config`` applied."""
+        kwargs = dict((self.fixed or {}).get(task, {}))
+        kwargs.update(config)
+        if self.seeded and seed is not None:
+            kwargs["random_state"] = seed
+        return self.estimator_class(task)(**kwargs)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "name": self.name,
+            "description": self.description,
+            "needs_scaling": self.needs_scaling,
+            "tasks": {
+                task: {"estimator": self.estimators[task], "space": self.spaces[task].to_dict()}
+                for task in TASKS
+            },
+        }

@@ -1,0 +1,24 @@
+"""k-nearest neighbours (Cover & Hart 1967)."""
+
+from warmstart.families.base import Family
+from warmstart.spaces import CATEGORICAL, INT, Param, SearchSpace
+
+
+def _space() -> SearchSpace:
+    return SearchSpace((
+        Param("n_neighbors", INT, 1, 100, log=True, default=5),
+        Param("weights", CATEGORICAL, choices=("uniform", "distance"), default="uniform"),
+        Param("p", INT, 1, 2, default=2),
+    ))
+
+
+FAMILY = Family(
+    name="knn",
+    description="k-nearest neighbours vote (classification) or average (regression).",
+    estimators={
+        "classification": "sklearn.neighbors.KNeighborsClassifier",
+        "regression": "sklearn.neighbors.KNeighborsRegressor",
+    },
+    spaces={"classification": _space(), "regression": _space()},
+    needs_scaling=True,
+)

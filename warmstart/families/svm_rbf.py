@@ -1,0 +1,27 @@
+"""Support vector machines with a radial-basis-function kernel (SVC / SVR)."""
+
+from warmstart.families.base import Family
+from warmstart.spaces import CATEGORICAL, FLOAT, Param, SearchSpace
+
+FAMILY = Family(
+    name="svm_rbf",
+    description="Kernel support vector machine with an RBF kernel.",
+    estimators={
+        "classification": "sklearn.svm.SVC",
+        "regression": "sklearn.svm.SVR",
+    },
+    spaces={
+        "classification": SearchSpace((
+            Param("C", FLOAT, 1e-3, 1e4, log=True, default=1.0),
+            Param("gamma", FLOAT, 1e-5, 10.0, log=True, default=0.1),
+            Param("class_weight", CATEGORICAL, choices=(None, "balanced"), default=None),
+        )),
+        "regression": SearchSpace((
+            Param("C", FLOAT, 1e-3, 1e4, log=True, default=1.0),
+            Param("gamma", FLOAT, 1e-5, 10.0, log=True, default=0.1),
+            Param("epsilon", FLOAT, 1e-4, 1.0, log=True, default=0.1),
+        )),
+    },
+    needs_scaling=True,
+    fixed={"classification": {"kernel": "rbf"}, "regression": {"kernel": "rbf"}},
+)

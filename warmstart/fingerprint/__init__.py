@@ -1,0 +1,175 @@
+"""Dataset fingerprints: a named vector of meta-features with its catalogue version.
+
+>>> from warmstart import fingerprint
+>>> fp = fingerprint(df, target="churned")      # doctest: +SKIP
+>>> fp.values["class_entropy_normalised"]       # doctest: +SKIP
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+from dataclasses import dataclass, field
+from importlib import import_module
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from warmstart.errors import BadInputError
+from warmstart.fingerprint.catalogue import (
+    CATALOGUE,
+    CATALOGUE_VERSION,
+    GROUPS,
+    MetaFeature,
+    catalogue,
+)
+from warmstart.fingerprint.profile import TASKS, DatasetProfile, infer_task, profile_frame
+from warmstart.io import read_table
+
+# Importing a group module registers its meta-features; this order is the catalogue's.
+GROUP_MODULES = ("shape", "target", "missing", "numeric", "categorical")
+for _module in GROUP_MODULES:
+    import_module(f"{__name__}.{_module}")
+
+FINGERPRINT_KIND = "warmstart-fingerprint"
+KNOWN_CATALOGUE_VERSIONS = tuple(range(1, CATALOGUE_VERSION + 1))
+
+
+@dataclass
+class Fingerprint:
+    """A dataset's meta-features, with what is needed to store and compare them.
+
+    Attributes
+    ----------
+    values : dict of str to float
+        Meta-feature name -> value; NaN where undefined.
+    catalogue_version : int
+    task : {"classification", "regression"}
+    target : str
+        The target column's name.
+    dataset_hash : str
+        SHA-256 of the table's content: equal hashes mean the same data.
+    warnings : list of str
+    """
+
+    values: dict[str, float]
+    catalogue_version: int
+    task: str
+    target: str
+    dataset_hash: str
+    warnings: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-compatible form; NaN becomes null."""
+        return {
+            "kind": FINGERPRINT_KIND,
+            "catalogue_version": self.catalogue_version,
+            "task": self.task,
+            "target": self.target,
+            "dataset_hash": self.dataset_hash,
+            "warnings": list(self.warnings),
+            "meta_features": {k: _json_float(v) for k, v in self.values.items()},
+        }
+
+    def to_json(self, indent: int | None = 2) -> str:
+        return json.dumps(self.to_dict(), indent=indent, allow_nan=False)
+
+    @classmethod
+    def from_dict(cls, d: Any) -> Fingerprint:
+        """Rebuild from :meth:`to_dict`, validating it (raises :class:`BadInputError`)."""
+        if not isinstance(d, dict) or d.get("kind") != FINGERPRINT_KIND:
+            raise BadInputError("not a warmstart fingerprint (expected the output of "
+                                "'warmstart fingerprint --json')")
+        version = d.get("catalogue_version")
+        if version not in KNOWN_CATALOGUE_VERSIONS:
+            raise BadInputError(
+                f"fingerprint has unknown catalogue version {version!r}; this warmstart "
+                f"knows versions {list(KNOWN_CATALOGUE_VERSIONS)}"
+            )
+        if d.get("task") not in TASKS:
+            raise BadInputError(f"fingerprint has an invalid task {d.get('task')!r}")
+        values = d.get("meta_features")
+        if not isinstance(values, dict) or not values:
+            raise BadInputError("fingerprint has no meta_features object")
+        clean: dict[str, float] = {}
+        for k, v in values.items():
+            if v is None:
+                clean[k] = float("nan")
+            elif isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v):
+                clean[k] = float(v)
+            else:
+                raise BadInputError(f"fingerprint meta-feature {k!r} is not a number: {v!r}")
+        unknown = sorted(set(clean) - set(CATALOGUE)) if version == CATALOGUE_VERSION else []
+        if unknown:
+            raise BadInputError(f"fingerprint has unknown meta-features: {', '.join(unknown)}")
+        h = d.get("dataset_hash")
+        if not isinstance(h, str) or len(h) != 64:
+            raise BadInputError("fingerprint has no valid dataset_hash")
+        return cls(clean, int(version), d["task"], str(d.get("target", "")), h,
+                   [str(w) for w in d.get("warnings", [])])
+
+    @classmethod
+    def from_json_file(cls, path: str | os.PathLike) -> Fingerprint:
+        try:
+            with open(path, encoding="utf-8") as fh:
+                data = json.load(fh)
+        except FileNotFoundError:
+            raise BadInputError(f"fingerprint file not found: {path}") from None
+        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+            raise BadInputError(f"fingerprint file {path} is not valid JSON: {exc}") from None
+        return cls.from_dict(data)
+
+    def grouped(self) -> dict[str, dict[str, float]]:
+        """Values arranged by catalogue group, in catalogue order."""
+        out: dict[str, dict[str, float]] = {}
+        for name, mf in CATALOGUE.items():
+            if name in self.values:
+                out.setdefault(mf.group, {})[name] = self.values[name]
+        return out
+
+
+def _json_float(v: float) -> float | None:
+    return None if v is None or not math.isfinite(v) else float(v)
+
+
+def load_frame(data: pd.DataFrame | str | os.PathLike) -> pd.DataFrame:
+    """Accept a DataFrame or a path to a CSV/Parquet/JSON-lines file."""
+    if isinstance(data, pd.DataFrame):
+        return data
+    return read_table(data)
+
+
+def fingerprint(data: pd.DataFrame | str | os.PathLike, target: str,
+                task: str | None = None) -> Fingerprint:
+    """Compute a dataset's fingerprint.
+
+    Parameters
+    ----------
+    data : DataFrame or path
+        The table (features and target), or a CSV / Parquet / JSON-lines file.
+    target : str
+        Name of the target column.
+    task : {"classification", "regression"}, optional
+        Inferred from the target when omitted (see :func:`infer_task`).
+
+    Returns
+    -------
+    Fingerprint
+    """
+    df = load_frame(data)
+    profile = profile_frame(df, target, task)
+    return fingerprint_profile(profile)
+
+
+def fingerprint_profile(profile: DatasetProfile) -> Fingerprint:
+    """Compute every catalogue meta-feature on a prepared profile."""
+    with np.errstate(all="ignore"):
+        values = {name: mf.compute(profile) for name, mf in CATALOGUE.items()}
+    return Fingerprint(values, CATALOGUE_VERSION, profile.task, profile.target,
+                       profile.dataset_hash, list(profile.warnings))
+
+
+__all__ = ["CATALOGUE", "CATALOGUE_VERSION", "GROUPS", "Fingerprint", "MetaFeature",
+           "catalogue", "fingerprint", "infer_task", "load_frame"]

@@ -1,0 +1,134 @@
+"""The meta-feature catalogue: every meta-feature's name, group, meaning and function.
+
+A meta-feature is a function ``profile -> float`` registered with :func:`meta_feature`.
+A per-column quantity summarised across columns is registered once with
+:func:`column_summary`, which adds one meta-feature per summary statistic
+(``_min``, ``_q1``, ``_median``, ``_q3``, ``_max``, ``_mean``).
+
+A meta-feature that is undefined for a dataset (a regression-only one on a
+classification task, a categorical summary with no categorical column) is NaN,
+never an error.
+
+``CATALOGUE_VERSION`` counts changes to the catalogue: bump it whenever a meta-feature
+is added, removed, or changes meaning, and regenerate the shipped demo history.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from warmstart.fingerprint.profile import DatasetProfile
+
+CATALOGUE_VERSION = 1
+BOTH, CLASSIFICATION, REGRESSION = "both", "classification", "regression"
+SUMMARY_STATS = ("min", "q1", "median", "q3", "max", "mean")
+
+
+@dataclass(frozen=True)
+class MetaFeature:
+    """One entry of the catalogue.
+
+    Attributes
+    ----------
+    name : str
+        snake_case name, unique in the catalogue.
+    group : str
+        The group it is listed under.
+    description : str
+        One line: what it measures.
+    method : str
+        Formula or method, with its reference where there is one.
+    value_range : str
+        The range of values, e.g. ``"[0, 1]"``.
+    tasks : {"both", "classification", "regression"}
+        Where it is defined; elsewhere it is NaN.
+    count_like : bool
+        A count or size (scaled by log before distances are taken).
+    """
+
+    name: str
+    group: str
+    description: str
+    method: str
+    value_range: str
+    tasks: str
+    count_like: bool
+    func: Callable[[DatasetProfile], float]
+
+    def compute(self, profile: DatasetProfile) -> float:
+        if self.tasks != BOTH and self.tasks != profile.task:
+            return float("nan")
+        value = float(self.func(profile))
+        return value if np.isfinite(value) else float("nan")
+
+    def to_dict(self) -> dict[str, object]:
+        return {"name": self.name, "group": self.group, "description": self.description,
+                "method": self.method, "range": self.value_range, "tasks": self.tasks,
+                "count_like": self.count_like}
+
+
+CATALOGUE: dict[str, MetaFeature] = {}
+GROUPS: dict[str, str] = {}
+
+
+def group(name: str, title: str) -> str:
+    """Declare a group and its one-line title; returns ``name`` for use in decorators."""
+    GROUPS[name] = title
+    return name
+
+
+def meta_feature(name: str, group: str, description: str, method: str, value_range: str,
+                 tasks: str = BOTH, count_like: bool = False):
+    """Register ``func(profile) -> float`` as the meta-feature ``name``."""
+
+    def register(func: Callable[[DatasetProfile], float]):
+        if name in CATALOGUE:
+            raise ValueError(f"meta-feature {name!r} registered twice")
+        CATALOGUE[name] = MetaFeature(name, group, description, method, value_range, tasks,
+                                      count_like, func)
+        return func
+
+    return register
+
+
+def column_summary(prefix: str, group: str, description: str, method: str,
+                   value_range: str, tasks: str = BOTH):
+    """Register ``func(profile) -> ndarray`` (one value per column) as six summaries.
+
+    NaN entries (columns where the quantity is undefined) are left out of the summary;
+    with no defined column every summary is NaN. The per-column array is computed once
+    per profile.
+    """
+
+    def register(func: Callable[[DatasetProfile], np.ndarray]):
+        def per_column(profile: DatasetProfile) -> np.ndarray:
+            key = ("column_summary", prefix)
+            if key not in profile.cache:
+                values = np.asarray(func(profile), dtype=float)
+                profile.cache[key] = values[np.isfinite(values)]
+            return profile.cache[key]
+
+        reducers = {
+            "min": np.min, "q1": lambda v: np.quantile(v, 0.25), "median": np.median,
+            "q3": lambda v: np.quantile(v, 0.75), "max": np.max, "mean": np.mean,
+        }
+        for stat in SUMMARY_STATS:
+            reducer = reducers[stat]
+
+            def summary(profile: DatasetProfile, _reduce=reducer) -> float:
+                values = per_column(profile)
+                return float(_reduce(values)) if values.size else float("nan")
+
+            meta_feature(f"{prefix}_{stat}", group, f"{description} ({stat} over columns)",
+                         method, value_range, tasks)(summary)
+        return func
+
+    return register
+
+
+def catalogue() -> list[dict[str, object]]:
+    """The catalogue as a list of dicts, in registration order (groups stay together)."""
+    return [mf.to_dict() for mf in CATALOGUE.values()]

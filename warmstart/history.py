@@ -1,0 +1,427 @@
+"""The team history: a directory of Parquet tables of datasets, studies and trials.
+
+Layout (format version 1)::
+
+    <history>/
+      warmstart-history.json     {"format_version": 1, ...}
+      datasets/<id>.parquet      one row per dataset: its fingerprint (no rows of data)
+      studies/<id>.parquet       one row per study: family, metric, direction, label
+      trials/<id>.parquet        one row per trial: configuration (JSON), score, time
+
+Each ``log`` writes its own files (named by the new study's id) and never rewrites
+another's. The study row is written last and is the commit point: readers see a study,
+and its trials, only once its study file exists, so a writer killed half-way leaves
+nothing visible behind (``kb check --repair`` removes what it left). Any engine can read
+the tables, e.g. ``pandas.read_parquet("<history>/trials")``.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import uuid
+from dataclasses import dataclass, replace
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+
+from warmstart import __version__
+from warmstart.errors import BadInputError, NothingToSuggestError
+from warmstart.families import get_family
+from warmstart.fingerprint import Fingerprint, fingerprint, load_frame
+from warmstart.metrics import DEFAULT_METRIC, MAXIMIZE, MINIMIZE, resolve_metric
+from warmstart.similarity import Neighbour, nearest
+from warmstart.spaces import SearchSpace, config_key
+from warmstart.storage import read_dir, visible_files, write_atomic, write_bytes_atomic
+from warmstart.strategies import (
+    DEFAULT_STRATEGY,
+    SuggestContext,
+    Suggestion,
+    get_strategy,
+    prepare_trials,
+)
+from warmstart.trials import OK, TrialsInput, validate_trials
+
+FORMAT_FILE = "warmstart-history.json"
+FORMAT_VERSION = 1
+ENV_VAR = "WARMSTART_KB"
+DEFAULT_PATH = "knowledge_base"
+
+_TS = pa.timestamp("us", tz="UTC")
+SCHEMAS: dict[str, pa.Schema] = {
+    "datasets": pa.schema([
+        ("dataset_id", pa.string()),
+        ("name", pa.string()),
+        ("task", pa.string()),
+        ("target", pa.string()),
+        ("catalogue_version", pa.int32()),
+        ("meta_features", pa.string()),  # JSON object: name -> value (null = undefined)
+        ("warnings", pa.string()),  # JSON list of strings
+        ("created_at", _TS),
+    ]),
+    "studies": pa.schema([
+        ("study_id", pa.string()),
+        ("dataset_id", pa.string()),
+        ("family", pa.string()),
+        ("task", pa.string()),
+        ("metric", pa.string()),
+        ("direction", pa.string()),  # "maximize" or "minimize"
+        ("label", pa.string()),
+        ("n_trials", pa.int32()),
+        ("source", pa.string()),  # "log" or "tune"
+        ("tool_version", pa.string()),
+        ("created_at", _TS),
+    ]),
+    "trials": pa.schema([
+        ("study_id", pa.string()),
+        ("trial_index", pa.int32()),
+        ("config", pa.string()),  # JSON object: estimator keyword -> value
+        ("score", pa.float64()),
+        ("fit_seconds", pa.float64()),
+        ("status", pa.string()),  # "ok" or "failed"
+        ("error", pa.string()),
+    ]),
+}
+KEYS = {"datasets": ["dataset_id"], "studies": ["study_id"], "trials": ["study_id", "trial_index"]}
+
+
+def resolve_path(path: str | os.PathLike | None = None) -> Path:
+    """Where the history lives: ``path``, else ``$WARMSTART_KB``, else ``./knowledge_base``."""
+    return Path(path or os.environ.get(ENV_VAR) or DEFAULT_PATH)
+
+
+@dataclass(frozen=True)
+class LoggedStudy:
+    """What :meth:`KnowledgeBase.log` wrote."""
+
+    study_id: str
+    dataset_id: str
+    dataset_is_new: bool
+    family: str
+    task: str
+    metric: str
+    direction: str
+    label: str
+    n_trials: int
+    n_ok: int
+    best_score: float | None
+
+    def to_dict(self) -> dict[str, Any]:
+        return dict(self.__dict__)
+
+
+class KnowledgeBase:
+    """A team history on disk.
+
+    Parameters
+    ----------
+    path : path-like, optional
+        The history's directory; defaults to :func:`resolve_path`. It must already be a
+        history (see :meth:`init`).
+    """
+
+    def __init__(self, path: str | os.PathLike | None = None):
+        self.path = resolve_path(path)
+        marker = self.path / FORMAT_FILE
+        if self.path.exists() and not self.path.is_dir():
+            raise BadInputError(f"history path {self.path} is a file, not a directory")
+        if not marker.is_file():
+            raise BadInputError(
+                f"{self.path} is not a warmstart history (no {FORMAT_FILE}); "
+                f"create one with 'warmstart kb init {self.path}'"
+            )
+        try:
+            meta = json.loads(marker.read_text(encoding="utf-8"))
+            version = int(meta["format_version"])
+        except (ValueError, KeyError, TypeError):
+            raise BadInputError(f"{marker} is not a valid history marker file") from None
+        if version > FORMAT_VERSION:
+            raise BadInputError(
+                f"history {self.path} has format version {version}, newer than this "
+                f"warmstart ({__version__}) reads (up to {FORMAT_VERSION}); upgrade warmstart"
+            )
+        self.format_version = version
+
+    # -- creation -----------------------------------------------------------------
+    @classmethod
+    def init(cls, path: str | os.PathLike) -> KnowledgeBase:
+        """Create an empty history at ``path`` (or open the one already there)."""
+        root = Path(path)
+        if root.exists() and not root.is_dir():
+            raise BadInputError(f"cannot create a history at {root}: it is a file")
+        if (root / FORMAT_FILE).is_file():
+            return cls(root)
+        if root.is_dir() and any(root.iterdir()):
+            raise BadInputError(f"cannot create a history in {root}: directory is not empty")
+        try:
+            root.mkdir(parents=True, exist_ok=True)
+            for table in SCHEMAS:
+                (root / table).mkdir(exist_ok=True)
+            marker = {"format_version": FORMAT_VERSION, "created_by": f"warmstart {__version__}",
+                      "tables": list(SCHEMAS)}
+            write_bytes_atomic(json.dumps(marker, indent=2).encode() + b"\n", root / FORMAT_FILE)
+        except PermissionError:
+            raise BadInputError(f"cannot create a history at {root}: permission denied") from None
+        return cls(root)
+
+    # -- reading --------------------------------------------------------------------
+    def _raw(self, table: str) -> pa.Table:
+        return read_dir(self.path / table, SCHEMAS[table])
+
+    def tables(self) -> dict[str, pd.DataFrame]:
+        """The visible rows of all three tables, de-duplicated by key.
+
+        Visible means committed: a study whose study row exists, its trials, and the
+        datasets some visible study refers to.
+        """
+        studies = self._raw("studies").to_pandas().drop_duplicates(KEYS["studies"])
+        trials = self._raw("trials").to_pandas()
+        trials = trials[trials["study_id"].isin(studies["study_id"])]
+        trials = trials.drop_duplicates(KEYS["trials"]).reset_index(drop=True)
+        datasets = self._raw("datasets").to_pandas().drop_duplicates(KEYS["datasets"])
+        datasets = datasets[datasets["dataset_id"].isin(studies["dataset_id"])]
+        return {"datasets": datasets.reset_index(drop=True),
+                "studies": studies.reset_index(drop=True), "trials": trials}
+
+    def fingerprints(self, datasets: pd.DataFrame | None = None) -> dict[str, Fingerprint]:
+        """Stored fingerprints by dataset id."""
+        if datasets is None:
+            datasets = self.tables()["datasets"]
+        out = {}
+        for row in datasets.itertuples(index=False):
+            values = {k: (np.nan if v is None else float(v))
+                      for k, v in json.loads(row.meta_features).items()}
+            out[row.dataset_id] = Fingerprint(values, int(row.catalogue_version), row.task,
+                                              row.target, "", json.loads(row.warnings))
+        return out
+
+    # -- writing ----------------------------------------------------------------------
+    def log(self, data: pd.DataFrame | str | os.PathLike | None = None, *,
+            target: str | None = None, family: str, trials: TrialsInput, metric: str | None = None,
+            direction: str | None = None, name: str | None = None,
+            fingerprint_of: Fingerprint | str | os.PathLike | None = None,
+            task: str | None = None, source: str = "log") -> LoggedStudy:
+        """Log one finished study.
+
+        Parameters
+        ----------
+        data : DataFrame or path, optional
+            The dataset (features and target). Not needed when ``fingerprint_of`` is given.
+        target : str
+            The target column (with ``data``).
+        family : str
+            A declared model family (see :func:`warmstart.families`).
+        trials : DataFrame, path or list of dicts
+            One row per trial: parameter columns, ``score``, optional ``fit_seconds``,
+            ``status`` and ``error``.
+        metric : str, optional
+            scikit-learn scorer name; defaults to balanced accuracy or R².
+        direction : {"maximize", "minimize"}, optional
+            Required for a metric scikit-learn does not know.
+        name : str, optional
+            A label for the study (and the dataset, when it is new).
+        fingerprint_of : Fingerprint or path to its JSON, optional
+            Use this fingerprint instead of computing one from ``data``.
+        task : {"classification", "regression"}, optional
+            Overrides the task inferred from the target.
+
+        Everything is validated before anything is written; on any error nothing is.
+        """
+        fam = get_family(family)
+        if fingerprint_of is not None:
+            fp = (fingerprint_of if isinstance(fingerprint_of, Fingerprint)
+                  else Fingerprint.from_json_file(fingerprint_of))
+            if task is not None and task != fp.task:
+                raise BadInputError(f"the fingerprint is for {fp.task}, not {task}")
+        else:
+            if data is None or target is None:
+                raise BadInputError("give the dataset and its target, or a fingerprint")
+            fp = fingerprint(load_frame(data), target=target, task=task)
+        metric_obj = resolve_metric(metric or DEFAULT_METRIC[fp.task], direction)
+        checked = validate_trials(trials, fam.space(fp.task), metric_obj)
+        self._check_writable()
+
+        label = name or (Path(data).stem if isinstance(data, (str, os.PathLike)) else
+                         f"dataset-{fp.dataset_hash[:8]}")
+        dataset_id = fp.dataset_hash[:16]
+        study_id = uuid.uuid4().hex
+        now = datetime.now(timezone.utc)
+        existing = self.tables()
+        is_new = dataset_id not in set(existing["datasets"]["dataset_id"])
+
+        trial_table = pa.Table.from_pylist([
+            {"study_id": study_id, "trial_index": i, "config": config_key(t.config),
+             "score": t.score, "fit_seconds": t.fit_seconds, "status": t.status,
+             "error": t.error} for i, t in enumerate(checked)
+        ], schema=SCHEMAS["trials"])
+        study_table = pa.Table.from_pylist([{
+            "study_id": study_id, "dataset_id": dataset_id, "family": fam.name,
+            "task": fp.task, "metric": metric_obj.name, "direction": metric_obj.direction,
+            "label": label, "n_trials": len(checked), "source": source,
+            "tool_version": __version__, "created_at": now,
+        }], schema=SCHEMAS["studies"])
+        # Dataset first, trials next, the study row last: the study file commits.
+        if is_new:
+            dataset_table = pa.Table.from_pylist([{
+                "dataset_id": dataset_id, "name": label, "task": fp.task, "target": fp.target,
+                "catalogue_version": fp.catalogue_version,
+                "meta_features": json.dumps(fp.to_dict()["meta_features"], sort_keys=True),
+                "warnings": json.dumps(fp.warnings), "created_at": now,
+            }], schema=SCHEMAS["datasets"])
+            write_atomic(dataset_table, self.path / "datasets", f"{study_id}.parquet")
+        write_atomic(trial_table, self.path / "trials", f"{study_id}.parquet")
+        write_atomic(study_table, self.path / "studies", f"{study_id}.parquet")
+
+        scores = [t.score for t in checked if t.status == OK]
+        best = None
+        if scores:
+            best = max(scores) if metric_obj.direction == MAXIMIZE else min(scores)
+        return LoggedStudy(study_id, dataset_id, is_new, fam.name, fp.task, metric_obj.name,
+                           metric_obj.direction, label, len(checked), len(scores), best)
+
+    def _check_writable(self) -> None:
+        for table in SCHEMAS:
+            d = self.path / table
+            if not d.is_dir():
+                raise BadInputError(f"history {self.path} is missing its {table}/ directory")
+            if not os.access(d, os.W_OK | os.X_OK):
+                raise BadInputError(f"history {self.path} is read-only ({d} is not writable)")
+
+    # -- questions ------------------------------------------------------------------
+    def _query(self, data, target, task, fingerprint_of) -> Fingerprint:
+        if fingerprint_of is not None:
+            fp = (fingerprint_of if isinstance(fingerprint_of, Fingerprint)
+                  else Fingerprint.from_json_file(fingerprint_of))
+            if task is not None and task != fp.task:
+                raise BadInputError(f"the fingerprint is for {fp.task}, not {task}")
+            return fp
+        if data is None or target is None:
+            raise BadInputError("give the dataset and its target, or a fingerprint")
+        return fingerprint(load_frame(data), target=target, task=task)
+
+    def _neighbours(self, query: Fingerprint, datasets: pd.DataFrame,
+                    k: int | None) -> list[Neighbour]:
+        same_task = datasets[datasets["task"] == query.task]
+        fps = self.fingerprints(same_task)
+        names = dict(zip(same_task["dataset_id"], same_task["name"]))
+        return nearest(query, fps, names, k=k)
+
+    def similar(self, data: pd.DataFrame | str | os.PathLike | None = None, *,
+                target: str | None = None, k: int = 5, task: str | None = None,
+                fingerprint_of: Fingerprint | str | os.PathLike | None = None
+                ) -> list[Neighbour]:
+        """The ``k`` past datasets (same task) nearest to this one, with explanations.
+
+        See :mod:`warmstart.similarity` for the scaling and the distance.
+        """
+        if k < 1:
+            raise BadInputError("k must be at least 1")
+        query = self._query(data, target, task, fingerprint_of)
+        return self._neighbours(query, self.tables()["datasets"], k)
+
+    def suggest(self, data: pd.DataFrame | str | os.PathLike | None = None, *,
+                target: str | None = None, family: str, k: int = 10,
+                task: str | None = None, metric: str | None = None,
+                strategy: str | None = None, space: SearchSpace | None = None,
+                max_fit_seconds: float | None = None, seed: int = 0,
+                fingerprint_of: Fingerprint | str | os.PathLike | None = None
+                ) -> list[Suggestion]:
+        """A ranked list of starting configurations for ``family`` on this dataset.
+
+        Parameters
+        ----------
+        family : str
+        k : int
+            How many configurations.
+        metric : str, optional
+            Use only studies of this metric. By default the task's default metric
+            (balanced accuracy, R²) when the history has such studies of the family,
+            else the metric most of them use. Metrics are never mixed.
+        strategy : str, optional
+            A name from :data:`warmstart.strategies.STRATEGIES`.
+        space : SearchSpace, optional
+            Restrict suggestions to this space (values outside are clipped to its
+            bounds; configurations with a categorical value outside it are dropped).
+        max_fit_seconds : float, optional
+            Drop suggestions whose expected fit time exceeds this.
+
+        Raises :class:`NothingToSuggestError` when the history has no study of the
+        family for this task.
+        """
+        if k < 1:
+            raise BadInputError("k must be at least 1")
+        fam = get_family(family)
+        strat = get_strategy(strategy or DEFAULT_STRATEGY)
+        query = self._query(data, target, task, fingerprint_of)
+        t = self.tables()
+        studies = t["studies"]
+        studies = studies[(studies["family"] == fam.name) & (studies["task"] == query.task)]
+        if studies.empty:
+            raise NothingToSuggestError(
+                f"the history at {self.path} has no {query.task} study of family "
+                f"{fam.name!r}; log one first (warmstart log ...)"
+            )
+        metrics = studies["metric"].value_counts()
+        if metric is None:
+            default = DEFAULT_METRIC[query.task]
+            metric = default if default in metrics.index else str(metrics.index[0])
+        elif metric not in metrics.index:
+            raise NothingToSuggestError(
+                f"no {fam.name!r} study in the history uses metric {metric!r} "
+                f"(available: {', '.join(metrics.index)})"
+            )
+        studies = studies[studies["metric"] == metric].reset_index(drop=True)
+        datasets = t["datasets"][t["datasets"]["dataset_id"].isin(studies["dataset_id"])]
+        rows = {r.dataset_id: float(json.loads(r.meta_features).get("rows") or np.nan)
+                for r in datasets.itertuples(index=False)}
+        ctx = SuggestContext(
+            query=query, family=fam, space=space or fam.space(query.task),
+            neighbours=self._neighbours(query, datasets, None), studies=studies,
+            trials=prepare_trials(t["trials"], studies), dataset_rows=rows, seed=seed,
+        )
+        # Ask for more than k when a time cap may remove some.
+        want = k if max_fit_seconds is None else 10 * k
+        out = strat.propose(ctx, want)
+        if max_fit_seconds is not None:
+            out = [s for s in out if s.expected_fit_seconds is None
+                   or s.expected_fit_seconds <= max_fit_seconds]
+        out = [replace(s, rank=i + 1) for i, s in enumerate(out[:k])]
+        if not out:
+            raise NothingToSuggestError("no configuration passes the filters")
+        return out
+
+    # -- summaries ------------------------------------------------------------------
+    def info(self) -> dict[str, Any]:
+        """Counts per family and metric, fingerprints per catalogue version, size on disk."""
+        t = self.tables()
+        studies, trials, datasets = t["studies"], t["trials"], t["datasets"]
+        per = []
+        if len(studies):
+            counts = trials.groupby("study_id").size()
+            s = studies.assign(trials=studies["study_id"].map(counts).fillna(0).astype(int))
+            grouped = s.groupby(["family", "task", "metric"], sort=True)
+            for (fam, task, metric), g in grouped:
+                per.append({"family": fam, "task": task, "metric": metric,
+                            "studies": int(len(g)), "datasets": int(g["dataset_id"].nunique()),
+                            "trials": int(g["trials"].sum())})
+        versions = datasets.groupby("catalogue_version").size()
+        size = sum(f.stat().st_size for f in self.path.rglob("*") if f.is_file())
+        return {
+            "path": str(self.path),
+            "format_version": self.format_version,
+            "datasets": int(len(datasets)),
+            "studies": int(len(studies)),
+            "trials": int(len(trials)),
+            "files": sum(len(visible_files(self.path / tb)) for tb in SCHEMAS),
+            "bytes_on_disk": int(size),
+            "by_family": per,
+            "fingerprints_by_catalogue_version": {int(k): int(v) for k, v in versions.items()},
+        }
+
+
+__all__ = ["DEFAULT_PATH", "ENV_VAR", "FORMAT_VERSION", "KnowledgeBase", "LoggedStudy",
+           "MINIMIZE", "resolve_path"]

@@ -1,0 +1,84 @@
+"""Reading tables: CSV and Parquet files into pandas, and Parquet in record batches."""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Iterator
+from pathlib import Path
+
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from warmstart.errors import BadInputError
+
+PARQUET_SUFFIXES = (".parquet", ".pq")
+CSV_SUFFIXES = (".csv", ".tsv", ".txt")
+JSONL_SUFFIXES = (".jsonl", ".ndjson")
+
+
+def is_parquet(path: str | os.PathLike) -> bool:
+    """Whether ``path`` holds Parquet (by its magic bytes, whatever its name)."""
+    try:
+        with open(path, "rb") as fh:
+            return fh.read(4) == b"PAR1"
+    except OSError:
+        return False
+
+
+def read_table(path: str | os.PathLike) -> pd.DataFrame:
+    """Read a CSV, Parquet or JSON-lines file into a DataFrame.
+
+    Raises :class:`BadInputError` with a one-line reason for a missing, empty,
+    undecodable or malformed file, or one with duplicate column names.
+    """
+    p = Path(path)
+    if not p.exists():
+        raise BadInputError(f"file not found: {p}")
+    if p.is_dir():
+        raise BadInputError(f"expected a file, got a directory: {p}")
+    if p.stat().st_size == 0:
+        raise BadInputError(f"file is empty: {p}")
+    try:
+        if is_parquet(p):
+            df = pq.read_table(p).to_pandas()
+        elif p.suffix.lower() in JSONL_SUFFIXES:
+            df = pd.read_json(p, lines=True, dtype=False)
+        elif p.suffix.lower() in PARQUET_SUFFIXES:
+            raise BadInputError(f"{p} is named like Parquet but is not a Parquet file")
+        else:
+            df = _read_csv(p)
+    except BadInputError:
+        raise
+    except UnicodeDecodeError:
+        raise BadInputError(f"{p} is not UTF-8 text (undecodable bytes)") from None
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, pa.ArrowException,
+            ValueError) as exc:
+        reason = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise BadInputError(f"could not read {p} as a table: {reason}") from None
+    if df.columns.duplicated().any():
+        dupes = sorted(set(map(str, df.columns[df.columns.duplicated()])))
+        raise BadInputError(f"{p} has duplicate column names: {', '.join(dupes)}")
+    return df
+
+
+def _read_csv(p: Path) -> pd.DataFrame:
+    sep = "\t" if p.suffix.lower() == ".tsv" else ","
+    with open(p, "rb") as fh:
+        head = fh.read(65536)
+    if b"\x00" in head:
+        raise BadInputError(f"{p} is not a text table (it contains NUL bytes)")
+    # pandas silently renames duplicate headers (a, a.1): read the header row raw.
+    raw = pd.read_csv(p, sep=sep, header=None, nrows=1, encoding="utf-8", dtype=str)
+    names = [str(x) for x in raw.iloc[0].tolist()]
+    if len(set(names)) != len(names):
+        dupes = sorted({n for n in names if names.count(n) > 1})
+        raise BadInputError(f"{p} has duplicate column names: {', '.join(dupes)}")
+    return pd.read_csv(p, sep=sep, encoding="utf-8", low_memory=False)
+
+
+def iter_parquet_batches(path: str | os.PathLike, batch_rows: int = 65536
+                         ) -> Iterator[pa.RecordBatch]:
+    """Yield the record batches of a Parquet file, ``batch_rows`` rows at a time."""
+    pf = pq.ParquetFile(path)
+    yield from pf.iter_batches(batch_size=batch_rows)

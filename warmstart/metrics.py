@@ -1,0 +1,86 @@
+"""Metrics: scikit-learn scorer names, their direction and their range.
+
+Every scikit-learn scorer is *greater is better* (losses are negated, hence the
+``neg_`` prefix), so a scorer name fixes direction. The range is used to refuse
+impossible scores when a study is logged.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from sklearn.metrics import get_scorer_names
+
+from warmstart.errors import BadInputError
+
+MAXIMIZE = "maximize"
+MINIMIZE = "minimize"
+
+DEFAULT_METRIC = {"classification": "balanced_accuracy", "regression": "r2"}
+
+# Scorers bounded in [0, 1]; everything else named ``neg_*`` is bounded above by 0.
+_UNIT_INTERVAL_PREFIXES = (
+    "accuracy", "balanced_accuracy", "roc_auc", "average_precision", "f1", "precision",
+    "recall", "jaccard", "top_k_accuracy", "normalized_mutual_info",
+    "homogeneity", "completeness", "v_measure", "fowlkes_mallows", "rand_score",
+)
+_AT_MOST_ONE = ("r2", "adjusted_mutual_info_score", "explained_variance",
+                "d2_absolute_error_score", "d2_brier_score", "d2_log_loss_score",
+                "matthews_corrcoef", "adjusted_rand_score")
+
+
+@dataclass(frozen=True)
+class Metric:
+    """A metric: its name, whether higher or lower is better, and its closed range."""
+
+    name: str
+    direction: str
+    low: float = float("-inf")
+    high: float = float("inf")
+
+    @property
+    def higher_is_better(self) -> bool:
+        return self.direction == MAXIMIZE
+
+    def check(self, score: float) -> str | None:
+        """Return a description of why ``score`` is impossible, or None when it is fine."""
+        if not (self.low <= score <= self.high):
+            return f"score {score!r} is outside the range [{self.low}, {self.high}] of {self.name}"
+        return None
+
+
+def resolve_metric(name: str, direction: str | None = None) -> Metric:
+    """Return the :class:`Metric` for ``name``.
+
+    Parameters
+    ----------
+    name : str
+        A scikit-learn scorer name (direction and range known), or any other name
+        together with an explicit ``direction``.
+    direction : {"maximize", "minimize"}, optional
+        Required for names scikit-learn does not know; must agree with the scorer otherwise.
+    """
+    if direction not in (None, MAXIMIZE, MINIMIZE):
+        raise BadInputError(f"direction must be 'maximize' or 'minimize', not {direction!r}")
+    if name in get_scorer_names():
+        if direction == MINIMIZE:
+            raise BadInputError(
+                f"metric {name!r} is a scikit-learn scorer, which is higher-is-better; "
+                "drop --lower-is-better or log the loss under another name"
+            )
+        if name.startswith("neg_"):
+            return Metric(name, MAXIMIZE, high=0.0)
+        if name.startswith(_UNIT_INTERVAL_PREFIXES) or name == "mutual_info_score":
+            low = -1.0 if name in ("adjusted_rand_score",) else 0.0
+            high = float("inf") if name == "mutual_info_score" else 1.0
+            return Metric(name, MAXIMIZE, low=low, high=high)
+        if name in _AT_MOST_ONE:
+            low = -1.0 if name == "matthews_corrcoef" else float("-inf")
+            return Metric(name, MAXIMIZE, low=low, high=1.0)
+        return Metric(name, MAXIMIZE)
+    if direction is None:
+        raise BadInputError(
+            f"metric {name!r} is not a scikit-learn scorer name; say its direction with "
+            "--higher-is-better or --lower-is-better"
+        )
+    return Metric(name, direction)
