@@ -43,7 +43,7 @@ def read_table(path: str | os.PathLike) -> pd.DataFrame:
         if is_parquet(p):
             df = pq.read_table(p).to_pandas()
         elif p.suffix.lower() in JSONL_SUFFIXES:
-            df = pd.read_json(p, lines=True, dtype=False)
+            df = pd.read_json(p, lines=True, dtype=False, precise_float=True)
         elif p.suffix.lower() in PARQUET_SUFFIXES:
             raise BadInputError(f"{p} is named like Parquet but is not a Parquet file")
         else:
