@@ -9,6 +9,7 @@ from typing import Any
 from warmstart.spaces import SearchSpace
 
 TASKS = ("classification", "regression")
+CATEGORICAL_ENCODINGS = ("one_hot", "ordinal", "native")
 
 
 @dataclass(frozen=True)
@@ -32,6 +33,12 @@ class Family:
         Task -> keyword arguments always passed (not tuned), e.g. ``probability``.
     seeded : bool
         Whether the estimator takes ``random_state``.
+    categorical_encoding : {"one_hot", "ordinal", "native"}
+        How its pipeline turns categorical columns into numbers: one-hot columns
+        (linear, kernel and distance models, for which level codes carry no order),
+        ordinal codes (tree ensembles: one column per feature, splits can still isolate
+        levels), or ordinal codes declared as categorical to an estimator that splits
+        on categories itself (``categorical_features`` of histogram gradient boosting).
     """
 
     name: str
@@ -41,6 +48,15 @@ class Family:
     needs_scaling: bool = False
     fixed: dict[str, dict[str, Any]] | None = None
     seeded: bool = False
+    categorical_encoding: str = "one_hot"
+
+    def __post_init__(self) -> None:
+        if self.categorical_encoding not in CATEGORICAL_ENCODINGS:
+            raise ValueError(f"family {self.name!r}: categorical_encoding must be one of "
+                             f"{CATEGORICAL_ENCODINGS}")
+        for task in TASKS:
+            if task not in self.estimators or task not in self.spaces:
+                raise ValueError(f"family {self.name!r} declares no {task} estimator/space")
 
     def space(self, task: str) -> SearchSpace:
         return self.spaces[task]
@@ -62,6 +78,7 @@ class Family:
             "name": self.name,
             "description": self.description,
             "needs_scaling": self.needs_scaling,
+            "categorical_encoding": self.categorical_encoding,
             "tasks": {
                 task: {"estimator": self.estimators[task], "space": self.spaces[task].to_dict()}
                 for task in TASKS

@@ -16,4 +16,5 @@ FAMILY = Family(
     },
     fixed={"classification": {"n_jobs": 1}, "regression": {"n_jobs": 1}},
     seeded=True,
+    categorical_encoding="ordinal",
 )

@@ -27,4 +27,5 @@ FAMILY = Family(
     },
     spaces={"classification": _space(), "regression": _space()},
     seeded=True,
+    categorical_encoding="native",
 )

@@ -1,0 +1,373 @@
+"""A warm-started tuning study for one scikit-learn model family on one dataset.
+
+:func:`tune` first evaluates the history's suggestions for the dataset (the nearest
+past datasets' best configurations, see :meth:`KnowledgeBase.suggest`), then spends the
+rest of the budget on Bayesian optimisation (:mod:`warmstart.bayes`) started from those
+trials, or on seeded random search, and logs the study into the history.
+
+Each trial is a cross-validated score (``sklearn.model_selection.cross_validate`` with
+the scorer's name; stratified folds for classification, plain folds for regression,
+shuffled with the seed). Given the same data, seed and history, the same trials come in
+the same order.
+
+Time: every fit runs single-threaded (BLAS and OpenMP limited to one thread), so that
+``jobs`` (cross-validation folds run in parallel) is the only parallelism and trials do
+not oversubscribe a shared machine. A trial's ``fit_seconds`` — what is logged — is the
+mean fit time of one fold scaled linearly to all rows (``mean fold fit time * rows /
+mean training-fold rows``): an estimate of fitting once on the whole dataset, which is
+what the history's ``fit_seconds`` stands for. ``cv_seconds`` is the trial's wall time.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import sys
+import time
+import warnings
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, TextIO
+
+import numpy as np
+import pandas as pd
+from sklearn.metrics import get_scorer_names
+from sklearn.model_selection import KFold, StratifiedKFold, cross_validate
+from threadpoolctl import threadpool_limits
+
+from warmstart.bayes import BayesianOptimizer, random_config
+from warmstart.errors import BadInputError, NothingToSuggestError
+from warmstart.families import get_family
+from warmstart.fingerprint import fingerprint, load_frame
+from warmstart.history import KnowledgeBase, LoggedStudy
+from warmstart.metrics import DEFAULT_METRIC, resolve_metric
+from warmstart.pipelines import make_pipeline
+from warmstart.spaces import config_key
+from warmstart.storage import write_bytes_atomic
+from warmstart.trials import FAILED, OK
+
+SEARCHES = ("bayes", "random")
+WARM, BAYES, RANDOM = "warm-start", "bayes", "random"
+MAX_WARM_START = 5
+PROGRESS_ENV = "WARMSTART_PROGRESS"
+STOP_BUDGET, STOP_TIME, STOP_INTERRUPT = "budget", "time limit", "interrupted"
+
+
+@dataclass(frozen=True)
+class TuneTrial:
+    """One evaluated configuration of a tuning study.
+
+    ``score`` is the mean cross-validated score (None when the trial failed);
+    ``fold_scores`` the per-fold scores; ``origin`` says what proposed it
+    (``"warm-start"``, ``"bayes"`` or ``"random"``).
+    """
+
+    index: int
+    config: dict[str, Any]
+    origin: str
+    status: str
+    score: float | None
+    fold_scores: list[float]
+    fit_seconds: float | None
+    cv_seconds: float
+    error: str | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return dict(self.__dict__)
+
+
+@dataclass
+class TuneResult:
+    """What :func:`tune` did: the trials in order, the best, why it stopped, the log."""
+
+    family: str
+    task: str
+    metric: str
+    target: str
+    rows: int
+    cv: int
+    seed: int
+    search: str
+    budget: int
+    trials: list[TuneTrial] = field(default_factory=list)
+    stopped: str = STOP_BUDGET
+    notes: list[str] = field(default_factory=list)
+    logged: LoggedStudy | None = None
+    seconds: float = 0.0
+
+    @property
+    def interrupted(self) -> bool:
+        return self.stopped == STOP_INTERRUPT
+
+    @property
+    def best(self) -> TuneTrial | None:
+        ranked = self.ranked()
+        return ranked[0] if ranked and ranked[0].status == OK else None
+
+    def ranked(self) -> list[TuneTrial]:
+        """Trials best first (greater is better), failed ones last, ties by order."""
+        return sorted(self.trials, key=lambda t: (t.status != OK, -(t.score or 0.0), t.index))
+
+    def best_config(self) -> dict[str, Any] | None:
+        """The JSON written by ``out=``: the best configuration and its context."""
+        b = self.best
+        if b is None:
+            return None
+        return {"family": self.family, "task": self.task, "metric": self.metric,
+                "score": b.score, "trial": b.index, "cv": self.cv, "seed": self.seed,
+                "config": b.config}
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "family": self.family, "task": self.task, "metric": self.metric,
+            "target": self.target, "rows": self.rows, "cv": self.cv, "seed": self.seed,
+            "search": self.search, "budget": self.budget, "stopped": self.stopped,
+            "seconds": self.seconds, "notes": list(self.notes),
+            "best": self.best_config(),
+            "logged": None if self.logged is None else self.logged.to_dict(),
+            "trials": [t.to_dict() for t in self.trials],
+        }
+
+
+class ProgressBar:
+    """A one-line progress bar with the best score so far, redrawn in place.
+
+    Parameters
+    ----------
+    budget : int
+        Trials planned.
+    stream : text stream, optional
+        Where to draw; defaults to standard error.
+    enabled : bool, optional
+        Draw or not; by default only when ``stream`` is a terminal or the environment
+        variable ``WARMSTART_PROGRESS`` is ``1`` (which lets tests and logs force it).
+    """
+
+    def __init__(self, budget: int, stream: TextIO | None = None, enabled: bool | None = None,
+                 width: int = 24):
+        self.budget, self.width = budget, width
+        self.stream = stream if stream is not None else sys.stderr
+        if enabled is None:
+            enabled = os.environ.get(PROGRESS_ENV) == "1" or bool(
+                getattr(self.stream, "isatty", lambda: False)())
+        self.enabled = enabled
+        self.start = time.monotonic()
+        self.best: float | None = None
+        self.drawn = False
+
+    def __call__(self, trial: TuneTrial) -> None:
+        if not self.enabled:
+            return
+        if trial.status == OK and (self.best is None or trial.score > self.best):
+            self.best = trial.score
+        done = trial.index + 1
+        filled = int(round(self.width * min(done, self.budget) / max(1, self.budget)))
+        best = "-" if self.best is None else f"{self.best:.4g}"
+        line = (f"\r[{'#' * filled}{'.' * (self.width - filled)}] {done}/{self.budget} "
+                f"best {best}  {time.monotonic() - self.start:.0f}s ")
+        self.stream.write(line)
+        self.stream.flush()
+        self.drawn = True
+
+    def close(self) -> None:
+        if self.drawn:
+            self.stream.write("\n")
+            self.stream.flush()
+
+
+def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, budget: int,
+         metric: str | None = None, cv: int = 5, seed: int = 0, jobs: int = 1,
+         time_limit: float | None = None, search: str = "bayes",
+         kb: KnowledgeBase | str | os.PathLike | None = None, log: bool = True,
+         task: str | None = None, out: str | os.PathLike | None = None,
+         name: str | None = None, warm_start: int | None = None,
+         progress: Callable[[TuneTrial], None] | None = None) -> TuneResult:
+    """Run a warm-started tuning study of ``family`` on ``data`` and log it.
+
+    Parameters
+    ----------
+    data : DataFrame or path
+        Features and target (CSV, Parquet or JSON lines). Rows with a missing target
+        are left out of the cross-validation.
+    target : str
+        The target column.
+    family : str
+        A model family (see :func:`warmstart.families`).
+    budget : int
+        Trials to run, warm-start ones included (>= 1). Failed trials count.
+    metric : str, optional
+        A scikit-learn scorer name; defaults to balanced accuracy or R².
+    cv : int
+        Cross-validation folds (>= 2).
+    seed : int
+        Seeds the folds, the estimators, random search and the surrogate.
+    jobs : int
+        Folds fitted in parallel (``n_jobs`` of ``cross_validate``; -1 = all cores).
+    time_limit : float, optional
+        Seconds; no new trial starts once it has passed (a running one finishes).
+    search : {"bayes", "random"}
+        What proposes trials after the warm start.
+    kb : KnowledgeBase or path, optional
+        The history to take suggestions from and to log into. Without one the study
+        starts cold and is not logged.
+    log : bool
+        Log the study (``source="tune"``) into ``kb``. Interrupted and time-limited
+        studies are logged too, with the trials that finished.
+    task : {"classification", "regression"}, optional
+        Overrides the task inferred from the target.
+    out : path, optional
+        Write the best configuration as JSON here (see :meth:`TuneResult.best_config`).
+    name : str, optional
+        Label of the study (and of the dataset when it is new); defaults to the file
+        name.
+    warm_start : int, optional
+        Suggestions to evaluate first; default ``min(5, max(1, budget // 2))``.
+    progress : callable, optional
+        Called with each finished :class:`TuneTrial` (e.g. a :class:`ProgressBar`).
+
+    Returns
+    -------
+    TuneResult
+        ``stopped`` is ``"budget"``, ``"time limit"`` or ``"interrupted"`` (Ctrl-C:
+        the finished trials are still logged, the caller decides how to exit).
+    """
+    fam = get_family(family)
+    _check_int("budget", budget, 1)
+    _check_int("cv", cv, 2)
+    if not isinstance(jobs, int) or isinstance(jobs, bool) or not (jobs >= 1 or jobs == -1):
+        raise BadInputError(f"jobs must be a positive integer or -1, not {jobs!r}")
+    if time_limit is not None and not (isinstance(time_limit, (int, float)) and time_limit > 0):
+        raise BadInputError(f"time limit must be a positive number of seconds, not {time_limit!r}")
+    if search not in SEARCHES:
+        raise BadInputError(f"search must be one of {', '.join(SEARCHES)}, not {search!r}")
+    if warm_start is not None:
+        _check_int("warm_start", warm_start, 0)
+    if isinstance(kb, (str, os.PathLike)):
+        kb = KnowledgeBase(kb)
+    if log and kb is not None:
+        kb._check_writable()
+
+    df = load_frame(data)
+    if target not in df.columns:
+        raise BadInputError(f"target column {target!r} not found; columns are: "
+                            f"{', '.join(map(str, df.columns[:20]))}")
+    fp = fingerprint(df, target=target, task=task)  # validates the table and the target
+    task = fp.task
+    metric_name = metric or DEFAULT_METRIC[task]
+    if metric_name not in get_scorer_names():
+        raise BadInputError(f"metric {metric_name!r} is not a scikit-learn scorer name "
+                            "(tune computes the score itself)")
+    metric_obj = resolve_metric(metric_name)
+    space = fam.space(task)
+    notes: list[str] = []
+
+    labelled = df[df[target].notna()]
+    if len(labelled) < len(df):
+        notes.append(f"{len(df) - len(labelled)} rows with a missing target left out")
+    X = labelled.drop(columns=[target]).reset_index(drop=True)
+    y = labelled[target].reset_index(drop=True)
+    if task == "classification":
+        smallest = int(y.value_counts().min())
+        if smallest < cv:
+            raise BadInputError(f"the smallest class has {smallest} rows, fewer than the "
+                                f"{cv} folds; lower --cv")
+        folds = StratifiedKFold(n_splits=cv, shuffle=True, random_state=seed)
+    else:
+        y = pd.to_numeric(y, errors="coerce")
+        if len(y) < cv:
+            raise BadInputError(f"{len(y)} labelled rows cannot make {cv} folds")
+        folds = KFold(n_splits=cv, shuffle=True, random_state=seed)
+    train_rows = len(y) * (cv - 1) / cv
+
+    # -- the warm start ---------------------------------------------------------------
+    n_warm = min(MAX_WARM_START, max(1, budget // 2)) if warm_start is None else warm_start
+    n_warm = min(n_warm, budget)
+    queue: list[dict[str, Any]] = []
+    if kb is None:
+        notes.append("no history: starting cold")
+    elif n_warm > 0:
+        try:
+            found = kb.suggest(fingerprint_of=fp, family=fam.name, k=n_warm,
+                               metric=metric_name, seed=seed)
+            queue = [space.validate(s.config) for s in found]
+            notes.append(f"warm start: {len(queue)} configurations from the history's "
+                         f"nearest datasets")
+        except NothingToSuggestError as exc:
+            notes.append(f"starting cold: {exc}")
+
+    result = TuneResult(fam.name, task, metric_obj.name, str(target), len(y), cv, seed,
+                        search, budget, notes=notes)
+    optimizer = BayesianOptimizer(space, seed=seed)
+    rng = np.random.default_rng(seed)
+    start = time.monotonic()
+    try:
+        with threadpool_limits(1):  # see the module docstring: one thread per fit
+            while len(result.trials) < budget:
+                if time_limit is not None and time.monotonic() - start >= time_limit:
+                    result.stopped = STOP_TIME
+                    break
+                seen = {config_key(t.config) for t in result.trials}
+                while queue and config_key(queue[0]) in seen:
+                    queue.pop(0)
+                if queue:
+                    config, origin = queue.pop(0), WARM
+                elif search == BAYES:
+                    config = optimizer.propose([t.config for t in result.trials],
+                                               [t.score for t in result.trials])
+                    origin = BAYES
+                else:
+                    config, origin = random_config(space, rng, seen), RANDOM
+                trial = _evaluate(fam, task, config, X, y, folds, metric_obj.name, seed, jobs,
+                                  train_rows, len(result.trials), origin)
+                result.trials.append(trial)
+                if progress is not None:
+                    progress(trial)
+    except KeyboardInterrupt:
+        result.stopped = STOP_INTERRUPT
+    result.seconds = time.monotonic() - start
+
+    if log and kb is not None and result.trials:
+        label = name or (Path(data).stem if isinstance(data, (str, os.PathLike)) else None)
+        rows = [{**t.config, "score": t.score, "fit_seconds": t.fit_seconds,
+                 "status": t.status, "error": t.error} for t in result.trials]
+        result.logged = kb.log(df, target=target, family=fam.name, trials=rows,
+                               metric=metric_obj.name, name=label, fingerprint_of=fp,
+                               source="tune")
+    if out is not None and result.best is not None:
+        write_bytes_atomic(json.dumps(result.best_config(), indent=2).encode() + b"\n",
+                           Path(out))
+    return result
+
+
+def _evaluate(fam, task, config, X, y, folds, scoring, seed, jobs, train_rows, index,
+              origin) -> TuneTrial:
+    """Cross-validate one configuration; an exception makes a failed trial."""
+    t0 = time.monotonic()
+    try:
+        pipe = make_pipeline(fam, task, config, X, seed=seed)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # convergence chatter would break the table
+            res = cross_validate(pipe, X, y, cv=folds, scoring=scoring, n_jobs=jobs,
+                                 error_score="raise")
+        scores = [float(s) for s in res["test_score"]]
+        if not all(np.isfinite(scores)):
+            raise ValueError("the scorer returned a non-finite score")
+        fit = float(np.mean(res["fit_time"])) * len(y) / train_rows
+        return TuneTrial(index, config, origin, OK, float(np.mean(scores)), scores, fit,
+                         time.monotonic() - t0)
+    except KeyboardInterrupt:
+        raise
+    except Exception as exc:  # a trial that raises is recorded and the study goes on
+        text = str(exc).strip().splitlines()
+        error = f"{type(exc).__name__}: {text[0] if text else ''}".strip()
+        return TuneTrial(index, config, origin, FAILED, None, [], None,
+                         time.monotonic() - t0, error[:500])
+
+
+def _check_int(what: str, value: Any, low: int) -> None:
+    if not isinstance(value, (int, np.integer)) or isinstance(value, bool) or value < low:
+        raise BadInputError(f"{what} must be an integer >= {low}, not {value!r}")
+
+
+__all__ = ["SEARCHES", "ProgressBar", "TuneResult", "TuneTrial", "tune"]
