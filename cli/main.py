@@ -18,6 +18,7 @@ from warmstart.errors import WarmstartError
 from warmstart.fingerprint import CATALOGUE_VERSION, GROUPS
 from warmstart.history import ENV_VAR, KnowledgeBase, resolve_path
 from warmstart.metrics import MAXIMIZE, MINIMIZE
+from warmstart.strategies import DEFAULT_STRATEGY, STRATEGIES
 
 TASK = click.Choice(["classification", "regression"])
 
@@ -213,32 +214,47 @@ def similar_cmd(data, target, task, fingerprint_file, k, kb_path, as_json) -> No
 @click.option("-k", default=10, show_default=True, type=click.IntRange(min=1),
               help="How many configurations.")
 @click.option("--metric", default=None, help="Use only studies of this metric.")
+@click.option("--strategy", "-s", default=None,
+              help=f"Ranking strategy: {', '.join(STRATEGIES)} [default: {DEFAULT_STRATEGY}].")
+@click.option("--space", "space_file", type=click.Path(path_type=Path), default=None,
+              help="JSON search-space file restricting the suggestions (values outside "
+                   "are clipped; categorical values outside drop the configuration).")
+@click.option("--max-fit-seconds", type=click.FloatRange(min=0), default=None,
+              help="Drop suggestions expected to take longer to fit on DATA.")
+@click.option("--seed", type=int, default=0, show_default=True,
+              help="Seed for strategies that draw at random.")
 @kb_option
 @json_option
 @handle_errors
-def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, kb_path,
-                as_json) -> None:
+def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strategy,
+                space_file, max_fit_seconds, seed, kb_path, as_json) -> None:
     """Suggest starting configurations for FAMILY on DATA."""
     need_data(data, target, fingerprint_file)
     kb = KnowledgeBase(resolve_path(kb_path))
     found = kb.suggest(data if fingerprint_file is None else None, target=target,
-                       family=family, k=k, task=task, metric=metric,
+                       family=family, k=k, task=task, metric=metric, strategy=strategy,
+                       space=space_file, max_fit_seconds=max_fit_seconds, seed=seed,
                        fingerprint_of=fingerprint_file)
     if as_json:
         emit_json([s.to_dict() for s in found])
         return
     click.echo(f"{len(found)} starting configurations for {family} "
-               f"({found[0].strategy}, metric {found[0].metric}); normalised score: "
-               "1 = best trial of its study")
-    rows = [[s.rank, s.source_name, s.distance, s.normalised_score, s.score,
-             s.expected_fit_seconds, s.config] for s in found]
+               f"({found[0].strategy}, metric {found[0].metric or metric or 'default'}); "
+               "norm. score: 1 = best trial of its study (* = partly predicted)")
+    rows = [[s.rank, s.source_name or "-", s.distance,
+             None if s.normalised_score is None else
+             fmt(s.normalised_score) + ("*" if s.predicted else ""),
+             s.score, s.expected_fit_seconds, s.config or "(estimator defaults)"]
+            for s in found]
     click.echo(table(rows, ["#", "from dataset", "distance", "norm. score", "score",
                             "est. fit s", "configuration"], align="rlrrrrl"))
     click.echo("Starting points only: validate the tuned model on held-out data.")
 
 
 # Command groups kept in their own modules register themselves on ``main``.
+from cli import backtest as _backtest  # noqa: E402, F401
 from cli import kb as _kb  # noqa: E402, F401
+from cli import tune as _tune  # noqa: E402, F401
 
 if __name__ == "__main__":  # pragma: no cover
     main()

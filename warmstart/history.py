@@ -43,6 +43,7 @@ from warmstart.strategies import (
     Suggestion,
     get_strategy,
     prepare_trials,
+    user_space,
 )
 from warmstart.trials import OK, TrialsInput, validate_trials
 
@@ -343,7 +344,7 @@ class KnowledgeBase:
             else the metric most of them use. Metrics are never mixed.
         strategy : str, optional
             A name from :data:`warmstart.strategies.STRATEGIES`.
-        space : SearchSpace, optional
+        space : SearchSpace, JSON list or path of a JSON file, optional
             Restrict suggestions to this space (values outside are clipped to its
             bounds; configurations with a categorical value outside it are dropped).
         max_fit_seconds : float, optional
@@ -378,10 +379,13 @@ class KnowledgeBase:
         datasets = t["datasets"][t["datasets"]["dataset_id"].isin(studies["dataset_id"])]
         rows = {r.dataset_id: float(json.loads(r.meta_features).get("rows") or np.nan)
                 for r in datasets.itertuples(index=False)}
+        if space is not None:  # a SearchSpace, a JSON list, or a JSON file's path
+            space = user_space(space, fam, query.task)
         ctx = SuggestContext(
             query=query, family=fam, space=space or fam.space(query.task),
             neighbours=self._neighbours(query, datasets, None), studies=studies,
             trials=prepare_trials(t["trials"], studies), dataset_rows=rows, seed=seed,
+            restricted=space is not None,
         )
         # Ask for more than k when a time cap may remove some.
         want = k if max_fit_seconds is None else 10 * k

@@ -1,4 +1,7 @@
-"""Ranking strategies for ``suggest``: each turns the history into a ranked list."""
+"""Ranking strategies for ``suggest``: each turns the history into a ranked list.
+
+Register a new strategy by adding an instance to ``_ALL`` below (see DEVELOPERS.md).
+"""
 
 from __future__ import annotations
 
@@ -7,16 +10,30 @@ from warmstart.strategies.base import (
     Strategy,
     SuggestContext,
     Suggestion,
+    canonical_key,
     normalise_scores,
     prepare_trials,
+    user_space,
 )
+from warmstart.strategies.baselines import LibraryDefaults, RandomConfigs
 from warmstart.strategies.nearest_best import NearestBest
+from warmstart.strategies.portfolio import GreedyPortfolio
 
-STRATEGIES: dict[str, Strategy] = {s.name: s for s in (NearestBest(),)}
+_ALL: tuple[Strategy, ...] = (
+    GreedyPortfolio("portfolio"),
+    NearestBest(),
+    GreedyPortfolio("global-portfolio", weighted=False, neighbours=None),
+    RandomConfigs(),
+    LibraryDefaults(),
+)
+STRATEGIES: dict[str, Strategy] = {s.name: s for s in _ALL}
 DEFAULT_STRATEGY = "nearest-best"
 
 
-def get_strategy(name: str) -> Strategy:
+def get_strategy(name: str | Strategy) -> Strategy:
+    """The strategy called ``name`` (a Strategy instance is returned as is)."""
+    if not isinstance(name, str):
+        return name
     try:
         return STRATEGIES[name]
     except KeyError:
@@ -25,5 +42,6 @@ def get_strategy(name: str) -> Strategy:
         ) from None
 
 
-__all__ = ["DEFAULT_STRATEGY", "STRATEGIES", "Strategy", "SuggestContext", "Suggestion",
-           "get_strategy", "normalise_scores", "prepare_trials"]
+__all__ = ["DEFAULT_STRATEGY", "STRATEGIES", "GreedyPortfolio", "LibraryDefaults",
+           "NearestBest", "RandomConfigs", "Strategy", "SuggestContext", "Suggestion",
+           "canonical_key", "get_strategy", "normalise_scores", "prepare_trials", "user_space"]

@@ -5,22 +5,29 @@ that 1 is the study's best and 0 its worst whatever the metric's direction; a st
 whose trials all scored the same gets 1 for every trial. Min-max (rather than ranks)
 keeps the size of gaps: a configuration that is nearly as good as the best scores
 close to 1 even when many trials sit between them.
+
+Configurations are matched across studies by :func:`canonical_key`: the configuration
+brought into the family's declared space (missing parameters take their declared
+default, inactive ones are dropped), so ``{}`` and an explicit list of the defaults
+count as the same configuration.
 """
 
 from __future__ import annotations
 
 import json
+import os
 from dataclasses import dataclass, field
 from typing import Any, Protocol
 
 import numpy as np
 import pandas as pd
 
+from warmstart.errors import BadInputError
 from warmstart.families.base import Family
 from warmstart.fingerprint import Fingerprint
 from warmstart.metrics import MINIMIZE
 from warmstart.similarity import Neighbour
-from warmstart.spaces import SearchSpace
+from warmstart.spaces import SearchSpace, config_key
 
 
 def normalise_scores(scores: np.ndarray, direction: str) -> np.ndarray:
@@ -46,8 +53,10 @@ class Suggestion:
 
     ``expected_fit_seconds`` scales the source trial's logged fit time linearly by the
     ratio of row counts (new dataset / source dataset); None when no time was logged.
-    ``predicted`` is True when ``normalised_score`` comes from a surrogate model rather
-    than from a trial actually run on the source dataset.
+    ``predicted`` is True when ``normalised_score`` comes (at least in part) from a
+    surrogate model rather than from trials actually run. ``support`` lists, for
+    strategies that pool several datasets, one entry per source dataset:
+    ``{"dataset_id", "name", "weight", "normalised", "predicted"}``.
     """
 
     rank: int
@@ -64,9 +73,11 @@ class Suggestion:
     fit_seconds: float | None = None
     expected_fit_seconds: float | None = None
     predicted: bool = False
+    support: tuple[dict[str, Any], ...] = ()
 
     def to_dict(self) -> dict[str, Any]:
         d = dict(self.__dict__)
+        d["support"] = [dict(s) for s in self.support]
         for key in ("distance", "score", "normalised_score", "fit_seconds",
                     "expected_fit_seconds"):
             v = d[key]
@@ -94,6 +105,15 @@ class SuggestContext:
     dataset_rows : dict
         Dataset id -> row count, for cost scaling.
     seed : int
+    restricted : bool
+        True when ``space`` is a user restriction (the library-defaults baseline then
+        returns the defaults clipped into it instead of ``{}``).
+    candidates : list of dict, optional
+        When given, strategies choose only among these configurations (the backtest
+        uses it to keep every suggestion inside an evaluated pool).
+    surrogates : dict
+        Cache of fitted surrogates by (study id, kind); shared between contexts by the
+        backtest, since a study's surrogate does not depend on the query.
     """
 
     query: Fingerprint
@@ -104,7 +124,67 @@ class SuggestContext:
     trials: pd.DataFrame
     dataset_rows: dict[str, float]
     seed: int = 0
+    restricted: bool = False
+    candidates: list[dict[str, Any]] | None = None
+    surrogates: dict[tuple[str, str], Any] = field(default_factory=dict)
     extra: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def full_space(self) -> SearchSpace:
+        """The family's declared space for the task (configurations are encoded in it)."""
+        return self.family.space(self.query.task)
+
+    def key(self, config: dict[str, Any]) -> str:
+        """:func:`canonical_key` of ``config`` in the family's declared space."""
+        return canonical_key(self.full_space, config)
+
+    def candidate_keys(self) -> set[str] | None:
+        """Canonical keys of :attr:`candidates`, or None when unrestricted."""
+        if self.candidates is None:
+            return None
+        if "_candidate_keys" not in self.extra:
+            self.extra["_candidate_keys"] = {self.key(c) for c in self.candidates}
+        return self.extra["_candidate_keys"]
+
+    def surrogate(self, study_id: str, kind: str = "forest"):
+        """The (cached) surrogate of one study, fitted on its ``ok`` trials."""
+        from warmstart.surrogate import fit_surrogate
+
+        cache_key = (study_id, kind)
+        if cache_key not in self.surrogates:
+            t = self.trials[self.trials["study_id"] == study_id]
+            self.surrogates[cache_key] = fit_surrogate(
+                list(t["config"]), t["normalised"].to_numpy(), self.full_space, kind,
+                self.seed)
+        return self.surrogates[cache_key]
+
+    def exact_match(self) -> Neighbour | None:
+        """The nearest neighbour when it is at distance 0 (the same dataset), else None."""
+        if self.neighbours and self.neighbours[0].distance == 0:
+            return self.neighbours[0]
+        return None
+
+    def dataset_trials(self, dataset_id: str) -> pd.DataFrame:
+        """Trials of every study on one dataset, best first (ties: study, trial order)."""
+        sids = self.studies.loc[self.studies["dataset_id"] == dataset_id, "study_id"]
+        t = self.trials[self.trials["study_id"].isin(sids)]
+        return t.sort_values(["normalised", "study_id", "trial_index"],
+                             ascending=[False, True, True], kind="stable")
+
+    def from_trial(self, strategy: str, row: Any, nb: Neighbour, config: dict[str, Any],
+                   **overrides: Any) -> Suggestion:
+        """A suggestion whose source is one logged trial (``row`` of :attr:`trials`)."""
+        meta = self.studies.set_index("study_id").loc[row["study_id"]]
+        fit = row["fit_seconds"]
+        fields: dict[str, Any] = dict(
+            rank=0, config=config, strategy=strategy, source_dataset_id=nb.dataset_id,
+            source_name=nb.name, study_id=row["study_id"], study_label=meta["label"],
+            distance=nb.distance, score=float(row["score"]),
+            normalised_score=float(row["normalised"]), metric=meta["metric"],
+            fit_seconds=None if fit != fit else float(fit),
+            expected_fit_seconds=self.expected_seconds(fit, nb.dataset_id))
+        fields.update(overrides)
+        return Suggestion(**fields)
 
     @property
     def query_rows(self) -> float:
@@ -120,11 +200,46 @@ class SuggestContext:
         return float(fit_seconds) * self.query_rows / src
 
 
+def user_space(spec: Any, family: Family, task: str) -> SearchSpace:
+    """A user restriction of ``family``'s space for ``task``.
+
+    ``spec`` is a :class:`SearchSpace` (returned as is), a JSON list as accepted by
+    :meth:`SearchSpace.from_dict`, or the path of a JSON file holding one.
+    """
+    if isinstance(spec, SearchSpace):
+        return spec
+    if isinstance(spec, (str, os.PathLike)):
+        try:
+            with open(spec, encoding="utf-8") as fh:
+                spec = json.load(fh)
+        except FileNotFoundError:
+            raise BadInputError(f"search-space file not found: {spec}") from None
+        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+            raise BadInputError(f"search-space file {spec} is not valid JSON: {exc}") from None
+    return SearchSpace.from_dict(spec, within=family.space(task))
+
+
+def canonical_key(space: SearchSpace, config: dict[str, Any]) -> str:
+    """A configuration's identity for matching across studies (see the module docstring).
+
+    Falls back to the raw key when the configuration does not fit ``space``.
+    """
+    clipped = space.clip(config)
+    return config_key(clipped if clipped is not None else config)
+
+
 class Strategy(Protocol):
-    """A ranking method: proposes up to ``k`` configurations, best first."""
+    """A ranking method: proposes up to ``k`` configurations, best first.
+
+    ``uses_history`` says whether it reads the history (those strategies must put the
+    best trial of a distance-0 dataset first); ``stochastic`` whether its output depends
+    on ``ctx.seed`` (the backtest then averages it over several seeds).
+    """
 
     name: str
     description: str
+    uses_history: bool
+    stochastic: bool
 
     def propose(self, ctx: SuggestContext, k: int) -> list[Suggestion]: ...
 

@@ -1,0 +1,202 @@
+"""Greedy portfolios: a short list of configurations that complement each other.
+
+Greedy ordered defaults (Wistuba, Schilling & Schmidt-Thieme, ECML-PKDD 2015; Pfisterer
+et al., "Learning multiple defaults", 2018): with ``P[c, j]`` the normalised score of
+candidate ``c`` on source study ``j`` and weights ``w_j`` summing to 1, pick, one at a
+time, the candidate that most raises
+
+    sum_j  w_j * max(b_j, P[c, j]),        b_j = best P[., j] among those already picked
+
+(``b_j`` starts at 0). A configuration that only repeats what is already covered adds
+nothing, so the list spreads over the configurations that are best on different
+neighbours. Ties (e.g. once every source is covered) go to the higher weighted mean
+``sum_j w_j P[c, j]``, then to the first candidate in canonical-key order.
+
+``P[c, j]`` is the trial's normalised score where ``c`` was run in study ``j`` (the
+mean if it was run more than once) and otherwise the prediction of study ``j``'s
+surrogate (:mod:`warmstart.surrogate`); the suggestion says which (``predicted`` and
+``support``).
+
+Two variants:
+
+* similarity-weighted (``portfolio``): the sources are the studies of the
+  ``neighbours`` nearest datasets, with dataset weights ``softmax(-d / (t * m))``,
+  ``d`` the distance, ``m`` the median distance among those neighbours (a scale-free
+  temperature), ``t`` the ``temperature`` (``inf`` = uniform); a dataset's weight is
+  shared equally by its studies.
+* dataset-agnostic (``global-portfolio``): every dataset in the history, uniform
+  weights - one list for all datasets, the baseline the weighted variant must beat.
+
+Candidates are the configurations of the sources' trials (brought into the search
+space, de-duplicated), or ``ctx.candidates`` when given. Both variants first place
+the best trial of a distance-0 dataset, if any (the same data seen before), then
+continue greedily.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+
+from warmstart.strategies.base import SuggestContext, Suggestion
+
+MAX_SUPPORT = 10
+
+
+def dataset_weights(distances: np.ndarray, temperature: float) -> np.ndarray:
+    """Softmax weights of neighbours from their distances, shape (n,), summing to 1.
+
+    Parameters
+    ----------
+    distances : ndarray of shape (n,), finite, >= 0
+    temperature : float
+        Relative to the median distance; ``inf`` gives uniform weights.
+    """
+    d = np.asarray(distances, dtype=float)
+    if d.size == 0:
+        return d
+    if not math.isfinite(temperature):
+        return np.full(d.size, 1.0 / d.size)
+    scale = float(np.median(d))
+    scale = scale if scale > 0 else 1.0
+    z = -(d - d.min()) / (temperature * scale)
+    w = np.exp(z)
+    return w / w.sum()
+
+
+def greedy_order(P: np.ndarray, w: np.ndarray, k: int, first: int | None = None) -> list[int]:
+    """Indices of ``k`` candidates picked greedily (see the module docstring).
+
+    Parameters
+    ----------
+    P : ndarray of shape (n_candidates, n_sources), values in [0, 1]
+    w : ndarray of shape (n_sources,), summing to 1
+    k : int
+    first : int, optional
+        A candidate forced into first place.
+    """
+    n = P.shape[0]
+    chosen: list[int] = []
+    b = np.zeros(P.shape[1])
+    mean = P @ w
+    free = np.ones(n, dtype=bool)
+    while len(chosen) < min(k, n):
+        if first is not None and not chosen:
+            i = first
+        else:
+            gain = np.maximum(P, b[None, :]) @ w
+            gain = np.where(free, gain, -np.inf)
+            top = gain.max()
+            # exact ties within float noise go to the higher weighted mean
+            tied = np.flatnonzero(gain >= top - 1e-12)
+            i = int(tied[np.argmax(mean[tied])])
+        chosen.append(i)
+        free[i] = False
+        b = np.maximum(b, P[i])
+    return chosen
+
+
+class GreedyPortfolio:
+    """See the module docstring. Parameters are the variant's settings."""
+
+    uses_history = True
+    stochastic = False
+
+    def __init__(self, name: str = "portfolio", *, neighbours: int | None = 10,
+                 temperature: float = 0.5, surrogate: str = "forest",
+                 weighted: bool = True, description: str | None = None):
+        self.name = name
+        self.neighbours = neighbours
+        self.temperature = temperature
+        self.surrogate = surrogate
+        self.weighted = weighted
+        self.description = description or (
+            f"greedy complementary list over the {neighbours} nearest datasets, "
+            f"similarity-weighted; unseen scores from per-study {surrogate} surrogates"
+            if weighted else
+            f"greedy complementary list over every dataset, uniform weights; unseen "
+            f"scores from per-study {surrogate} surrogates")
+
+    # -- sources and candidates ---------------------------------------------------
+    def _sources(self, ctx: SuggestContext) -> tuple[list, np.ndarray]:
+        nbs = list(ctx.neighbours)
+        if self.weighted and self.neighbours is not None:
+            nbs = nbs[:self.neighbours]
+        d = np.array([nb.distance if math.isfinite(nb.distance) else 1e6 for nb in nbs])
+        w = dataset_weights(d, self.temperature if self.weighted else math.inf)
+        units, weights = [], []
+        for nb, wd in zip(nbs, w):
+            sids = list(ctx.studies.loc[ctx.studies["dataset_id"] == nb.dataset_id,
+                                        "study_id"])
+            for sid in sids:
+                units.append((nb, sid))
+                weights.append(wd / len(sids))
+        return units, np.asarray(weights, dtype=float)
+
+    def propose(self, ctx: SuggestContext, k: int) -> list[Suggestion]:
+        units, w = self._sources(ctx)
+        if not units:
+            return []
+        trials = ctx.trials.assign(key=[ctx.key(c) for c in ctx.trials["config"]])
+        unit_ids = [sid for _, sid in units]
+        src = trials[trials["study_id"].isin(unit_ids)]
+        # candidates: canonical key -> configuration inside the (user) space
+        cands: dict[str, dict] = {}
+        pool = ctx.candidates if ctx.candidates is not None else list(src["config"])
+        for c in pool:
+            clipped = ctx.space.clip(c)
+            if clipped is not None:
+                cands.setdefault(ctx.key(clipped), clipped)
+        if not cands:
+            return []
+        keys = sorted(cands)
+        configs = [cands[key] for key in keys]
+        row_of = {key: i for i, key in enumerate(keys)}
+        P = np.zeros((len(keys), len(units)))
+        seen = np.zeros_like(P, dtype=bool)
+        for j, sid in enumerate(unit_ids):
+            t = src[src["study_id"] == sid]
+            obs = t.groupby("key")["normalised"].mean()
+            idx = [row_of[key] for key in obs.index if key in row_of]
+            vals = [v for key, v in obs.items() if key in row_of]
+            missing = np.setdiff1d(np.arange(len(keys)), idx)
+            if missing.size:
+                pred = ctx.surrogate(sid, self.surrogate).predict(
+                    [configs[i] for i in missing])
+                P[missing, j] = pred
+            P[idx, j] = vals
+            seen[idx, j] = True
+        first = self._first(ctx, trials, row_of)
+        order = greedy_order(P, w, k, first)
+        return [self._suggestion(ctx, src, units, w, P, seen, configs[i], keys[i], i, r)
+                for r, i in enumerate(order, 1)]
+
+    def _first(self, ctx: SuggestContext, trials: pd.DataFrame,
+               row_of: dict[str, int]) -> int | None:
+        nb = ctx.exact_match()
+        if nb is None:
+            return None
+        for row in ctx.dataset_trials(nb.dataset_id).itertuples(index=False):
+            clipped = ctx.space.clip(row.config)
+            if clipped is not None and ctx.key(clipped) in row_of:
+                return row_of[ctx.key(clipped)]
+        return None
+
+    def _suggestion(self, ctx, src, units, w, P, seen, config, key, i, rank) -> Suggestion:
+        mean = float(P[i] @ w)
+        observed = [j for j in np.argsort(-w, kind="stable") if seen[i, j]]
+        support = tuple(
+            {"dataset_id": units[j][0].dataset_id, "name": units[j][0].name,
+             "weight": float(w[j]), "normalised": float(P[i, j]),
+             "predicted": not bool(seen[i, j])}
+            for j in np.argsort(-w, kind="stable")[:MAX_SUPPORT])
+        common = dict(rank=rank, normalised_score=mean, predicted=not bool(seen[i].all()),
+                      support=support)
+        if not observed:  # only possible with ctx.candidates: nobody ran it
+            return Suggestion(config=config, strategy=self.name, metric=None, **common)
+        nb, sid = units[observed[0]]
+        t = src[(src["study_id"] == sid) & (src["key"] == key)]
+        row = t.sort_values("normalised", ascending=False, kind="stable").iloc[0]
+        return ctx.from_trial(self.name, row, nb, config, **common)
