@@ -148,6 +148,11 @@ class BayesianOptimizer:
         self.n_random, self.n_local, self.n_top = n_random, n_local, n_top
         self.n_initial, self.xi = n_initial, xi
 
+    def uses_surrogate(self, scores: Sequence[float | None]) -> bool:
+        """Whether :meth:`propose` with these scores consults the surrogate (enough
+        scored trials) rather than drawing at random."""
+        return sum(s is not None and bool(np.isfinite(s)) for s in scores) >= self.n_initial
+
     def propose(self, configs: Sequence[Mapping[str, Any]],
                 scores: Sequence[float | None]) -> dict[str, Any]:
         """The next configuration to evaluate.
@@ -161,9 +166,9 @@ class BayesianOptimizer:
         """
         rng = np.random.default_rng([self.seed, len(configs)])
         seen = {config_key(c) for c in configs}
-        ok = [s for s in scores if s is not None and np.isfinite(s)]
-        if len(ok) < self.n_initial:
+        if not self.uses_surrogate(scores):
             return self._fresh(rng, seen)
+        ok = [s for s in scores if s is not None and np.isfinite(s)]
         worst = min(ok)
         y = np.array([worst if s is None or not np.isfinite(s) else s for s in scores])
         X = self.space.encode(configs)

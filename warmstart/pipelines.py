@@ -15,7 +15,9 @@ Every family gets the same column typing and a front end adapted to what its mod
   (``Family.categorical_encoding``): one-hot, ordinal codes, or ordinal codes declared
   categorical to the estimator. For one-hot the cap shrinks as the number of
   categorical columns grows, so that wide text data cannot blow up the width that
-  linear, kernel and distance models see (at most ``MAX_ONE_HOT_WIDTH`` columns).
+  linear, kernel and distance models see (at most ``MAX_ONE_HOT_WIDTH`` columns);
+* the target is standardised for regression models whose hyperparameters are in
+  target units (``Family.scale_target``, support vector regression).
 
 Columns are selected by position, so any column labels (numbers, duplicates of
 another frame's names) work.
@@ -25,7 +27,7 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from sklearn.compose import ColumnTransformer
+from sklearn.compose import ColumnTransformer, TransformedTargetRegressor
 from sklearn.impute import SimpleImputer
 from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import (
@@ -157,4 +159,6 @@ def make_pipeline(family: Family, task: str, config: dict, X: pd.DataFrame,
     model = family.make_estimator(task, config, seed)
     if encoding == "native" and categorical:
         model.set_params(categorical_features=list(range(len(categorical))))
+    if family.scale_target and task == "regression":
+        model = TransformedTargetRegressor(regressor=model, transformer=StandardScaler())
     return Pipeline([("prepare", pre), ("model", model)])

@@ -48,7 +48,7 @@ from warmstart.storage import write_bytes_atomic
 from warmstart.trials import FAILED, OK
 
 SEARCHES = ("bayes", "random")
-WARM, BAYES, RANDOM = "warm-start", "bayes", "random"
+WARM, DEFAULTS, BAYES, RANDOM = "warm-start", "defaults", "bayes", "random"
 MAX_WARM_START = 5
 PROGRESS_ENV = "WARMSTART_PROGRESS"
 STOP_BUDGET, STOP_TIME, STOP_INTERRUPT = "budget", "time limit", "interrupted"
@@ -59,8 +59,11 @@ class TuneTrial:
     """One evaluated configuration of a tuning study.
 
     ``score`` is the mean cross-validated score (None when the trial failed);
-    ``fold_scores`` the per-fold scores; ``origin`` says what proposed it
-    (``"warm-start"``, ``"bayes"`` or ``"random"``).
+    ``fold_scores`` the per-fold scores; ``origin`` says what proposed it:
+    ``"warm-start"`` (a suggestion from the history), ``"defaults"`` (the family's
+    defaults, the first trial of a cold study), ``"bayes"`` (expected improvement) or
+    ``"random"`` (random search, and the first draws of Bayesian optimisation before
+    its surrogate has enough trials). ``index`` counts from 0 in running order.
     """
 
     index: int
@@ -73,8 +76,13 @@ class TuneTrial:
     cv_seconds: float
     error: str | None = None
 
+    @property
+    def fold_sd(self) -> float | None:
+        """Standard deviation of the fold scores (population, ddof=0); None if failed."""
+        return float(np.std(self.fold_scores)) if self.fold_scores else None
+
     def to_dict(self) -> dict[str, Any]:
-        return dict(self.__dict__)
+        return {**self.__dict__, "fold_sd": self.fold_sd}
 
 
 @dataclass
@@ -110,12 +118,13 @@ class TuneResult:
         return sorted(self.trials, key=lambda t: (t.status != OK, -(t.score or 0.0), t.index))
 
     def best_config(self) -> dict[str, Any] | None:
-        """The JSON written by ``out=``: the best configuration and its context."""
+        """The JSON written by ``out=``: the best configuration and its context
+        (``trial`` numbered from 1, as in the command's table)."""
         b = self.best
         if b is None:
             return None
         return {"family": self.family, "task": self.task, "metric": self.metric,
-                "score": b.score, "trial": b.index, "cv": self.cv, "seed": self.seed,
+                "score": b.score, "trial": b.index + 1, "cv": self.cv, "seed": self.seed,
                 "config": b.config}
 
     def to_dict(self) -> dict[str, Any]:
@@ -222,7 +231,9 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         Label of the study (and of the dataset when it is new); defaults to the file
         name.
     warm_start : int, optional
-        Suggestions to evaluate first; default ``min(5, max(1, budget // 2))``.
+        Suggestions to evaluate first; default ``min(5, max(1, budget // 2))``. A study
+        that gets no suggestion (no history, no study of the family, ``warm_start=0``)
+        evaluates the family's declared defaults first.
     progress : callable, optional
         Called with each finished :class:`TuneTrial` (e.g. a :class:`ProgressBar`).
 
@@ -284,6 +295,7 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
     n_warm = min(MAX_WARM_START, max(1, budget // 2)) if warm_start is None else warm_start
     n_warm = min(n_warm, budget)
     queue: list[dict[str, Any]] = []
+    queue_origin = WARM
     if kb is None:
         notes.append("no history: starting cold")
     elif n_warm > 0:
@@ -295,6 +307,10 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
                          f"nearest datasets")
         except NothingToSuggestError as exc:
             notes.append(f"starting cold: {exc}")
+    if not queue:
+        # A cold study starts where a user without a history would: the defaults.
+        queue = [space.validate(space.defaults())]
+        queue_origin = DEFAULTS
 
     result = TuneResult(fam.name, task, metric_obj.name, str(target), len(y), cv, seed,
                         search, budget, notes=notes)
@@ -311,11 +327,11 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
                 while queue and config_key(queue[0]) in seen:
                     queue.pop(0)
                 if queue:
-                    config, origin = queue.pop(0), WARM
+                    config, origin = queue.pop(0), queue_origin
                 elif search == BAYES:
-                    config = optimizer.propose([t.config for t in result.trials],
-                                               [t.score for t in result.trials])
-                    origin = BAYES
+                    scores = [t.score for t in result.trials]
+                    config = optimizer.propose([t.config for t in result.trials], scores)
+                    origin = BAYES if optimizer.uses_surrogate(scores) else RANDOM
                 else:
                     config, origin = random_config(space, rng, seen), RANDOM
                 trial = _evaluate(fam, task, config, X, y, folds, metric_obj.name, seed, jobs,

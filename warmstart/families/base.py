@@ -39,6 +39,10 @@ class Family:
         ordinal codes (tree ensembles: one column per feature, splits can still isolate
         levels), or ordinal codes declared as categorical to an estimator that splits
         on categories itself (``categorical_features`` of histogram gradient boosting).
+    scale_target : bool
+        Regression only: standardise the target before fitting (and undo it on
+        predictions), for models whose hyperparameters are in target units, such as
+        the epsilon-insensitive tube of support vector regression.
     """
 
     name: str
@@ -49,6 +53,7 @@ class Family:
     fixed: dict[str, dict[str, Any]] | None = None
     seeded: bool = False
     categorical_encoding: str = "one_hot"
+    scale_target: bool = False
 
     def __post_init__(self) -> None:
         if self.categorical_encoding not in CATEGORICAL_ENCODINGS:

@@ -23,5 +23,7 @@ FAMILY = Family(
         )),
     },
     needs_scaling=True,
+    # epsilon (and so C) is in target units: searched on the standardised target.
+    scale_target=True,
     fixed={"classification": {"kernel": "rbf"}, "regression": {"kernel": "rbf"}},
 )
