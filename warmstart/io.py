@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import os
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from pathlib import Path
 
 import pandas as pd
@@ -82,3 +82,30 @@ def iter_parquet_batches(path: str | os.PathLike, batch_rows: int = 65536
     """Yield the record batches of a Parquet file, ``batch_rows`` rows at a time."""
     pf = pq.ParquetFile(path)
     yield from pf.iter_batches(batch_size=batch_rows)
+
+
+def open_parquet(path: str | os.PathLike, batch_rows: int = 65536
+                 ) -> tuple[pa.Schema, int, Callable[[], Iterator[pa.RecordBatch]]]:
+    """A Parquet file's Arrow schema, row count and a re-startable batch iterator.
+
+    Only the footer is read here; the batches are read lazily, ``batch_rows`` rows at a
+    time, so memory does not grow with the file. Raises :class:`BadInputError` for an
+    unreadable file.
+    """
+    try:
+        pf = pq.ParquetFile(path)
+        schema = pf.schema_arrow
+        n_rows = pf.metadata.num_rows
+    except (OSError, pa.ArrowException) as exc:
+        raise BadInputError(f"could not read {path} as Parquet: {exc}") from None
+    if len(set(schema.names)) != len(schema.names):
+        dupes = sorted({n for n in schema.names if schema.names.count(n) > 1})
+        raise BadInputError(f"{path} has duplicate column names: {', '.join(dupes)}")
+
+    def batches() -> Iterator[pa.RecordBatch]:
+        try:
+            yield from pq.ParquetFile(path).iter_batches(batch_size=batch_rows)
+        except (OSError, pa.ArrowException) as exc:
+            raise BadInputError(f"could not read {path} as Parquet: {exc}") from None
+
+    return schema, n_rows, batches

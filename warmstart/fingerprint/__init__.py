@@ -25,11 +25,19 @@ from warmstart.fingerprint.catalogue import (
     MetaFeature,
     catalogue,
 )
-from warmstart.fingerprint.profile import TASKS, DatasetProfile, infer_task, profile_frame
+from warmstart.fingerprint.profile import (
+    TASKS,
+    DatasetProfile,
+    infer_task,
+    profile_frame,
+    profile_table,
+)
+from warmstart.fingerprint.scan import BATCH_ROWS, SAMPLE_CAP
 from warmstart.io import read_table
 
 # Importing a group module registers its meta-features; this order is the catalogue's.
-GROUP_MODULES = ("shape", "target", "missing", "numeric", "categorical")
+GROUP_MODULES = ("shape", "target", "missing", "numeric", "categorical", "structure",
+                 "information", "landmarks", "complexity")
 for _module in GROUP_MODULES:
     import_module(f"{__name__}.{_module}")
 
@@ -142,8 +150,15 @@ def load_frame(data: pd.DataFrame | str | os.PathLike) -> pd.DataFrame:
 
 
 def fingerprint(data: pd.DataFrame | str | os.PathLike, target: str,
-                task: str | None = None) -> Fingerprint:
+                task: str | None = None, *, sample_cap: int = SAMPLE_CAP,
+                batch_rows: int = BATCH_ROWS) -> Fingerprint:
     """Compute a dataset's fingerprint.
+
+    The table is read once: a Parquet file in record batches of ``batch_rows`` rows (its
+    memory use does not grow with its length), a DataFrame cut into batches the same way
+    (a frame and its Parquet file give the same fingerprint), a CSV or JSON-lines file
+    read whole first. Exact groups use every row; sample-based groups use a seeded sample
+    of ``sample_cap`` rows. The same table always gives the same fingerprint.
 
     Parameters
     ----------
@@ -153,13 +168,17 @@ def fingerprint(data: pd.DataFrame | str | os.PathLike, target: str,
         Name of the target column.
     task : {"classification", "regression"}, optional
         Inferred from the target when omitted (see :func:`infer_task`).
+    sample_cap : int, default 5000
+        Rows in the sample used by sample-based meta-features.
+    batch_rows : int, default 65536
+        Rows per batch while reading.
 
     Returns
     -------
     Fingerprint
+        Its ``warnings`` say which dirty columns were found and what was done with them.
     """
-    df = load_frame(data)
-    profile = profile_frame(df, target, task)
+    profile = profile_table(data, target, task, sample_cap=sample_cap, batch_rows=batch_rows)
     return fingerprint_profile(profile)
 
 
@@ -171,5 +190,6 @@ def fingerprint_profile(profile: DatasetProfile) -> Fingerprint:
                        profile.dataset_hash, list(profile.warnings))
 
 
-__all__ = ["CATALOGUE", "CATALOGUE_VERSION", "GROUPS", "Fingerprint", "MetaFeature",
-           "catalogue", "fingerprint", "infer_task", "load_frame"]
+__all__ = ["CATALOGUE", "CATALOGUE_VERSION", "GROUPS", "DatasetProfile", "Fingerprint",
+           "MetaFeature", "catalogue", "fingerprint", "fingerprint_profile", "infer_task",
+           "load_frame", "profile_frame", "profile_table"]

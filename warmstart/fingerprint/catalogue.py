@@ -9,6 +9,12 @@ A meta-feature that is undefined for a dataset (a regression-only one on a
 classification task, a categorical summary with no categorical column) is NaN,
 never an error.
 
+Each meta-feature states its ``basis``: ``"exact"`` -- computed from one-pass mergeable
+summaries of every row (equal, up to rounding, however the rows are batched or
+ordered); ``"sketch"`` -- exact while counts stay small (levels, patterns, distinct rows
+up to 4096), estimated beyond; ``"sample"`` -- computed on the seeded sample of at most
+``SAMPLE_CAP`` rows (all rows for smaller tables).
+
 ``CATALOGUE_VERSION`` counts changes to the catalogue: bump it whenever a meta-feature
 is added, removed, or changes meaning, and regenerate the shipped demo history.
 """
@@ -47,6 +53,10 @@ class MetaFeature:
         Where it is defined; elsewhere it is NaN.
     count_like : bool
         A count or size (scaled by log before distances are taken).
+    func : callable
+        ``func(profile) -> float``.
+    basis : {"exact", "sketch", "sample"}
+        What the value is computed from (see the module docstring).
     """
 
     name: str
@@ -57,17 +67,22 @@ class MetaFeature:
     tasks: str
     count_like: bool
     func: Callable[[DatasetProfile], float]
+    basis: str = "exact"
 
     def compute(self, profile: DatasetProfile) -> float:
         if self.tasks != BOTH and self.tasks != profile.task:
             return float("nan")
-        value = float(self.func(profile))
+        try:
+            value = float(self.func(profile))
+        except (ValueError, ZeroDivisionError, FloatingPointError, np.linalg.LinAlgError):
+            # Undefined for this dataset (e.g. too few rows of a class): NaN, not an error.
+            return float("nan")
         return value if np.isfinite(value) else float("nan")
 
     def to_dict(self) -> dict[str, object]:
         return {"name": self.name, "group": self.group, "description": self.description,
                 "method": self.method, "range": self.value_range, "tasks": self.tasks,
-                "count_like": self.count_like}
+                "count_like": self.count_like, "basis": self.basis}
 
 
 CATALOGUE: dict[str, MetaFeature] = {}
@@ -80,22 +95,27 @@ def group(name: str, title: str) -> str:
     return name
 
 
+BASES = ("exact", "sketch", "sample")
+
+
 def meta_feature(name: str, group: str, description: str, method: str, value_range: str,
-                 tasks: str = BOTH, count_like: bool = False):
+                 tasks: str = BOTH, count_like: bool = False, basis: str = "exact"):
     """Register ``func(profile) -> float`` as the meta-feature ``name``."""
 
     def register(func: Callable[[DatasetProfile], float]):
         if name in CATALOGUE:
             raise ValueError(f"meta-feature {name!r} registered twice")
+        if basis not in BASES:
+            raise ValueError(f"meta-feature {name!r} has an unknown basis {basis!r}")
         CATALOGUE[name] = MetaFeature(name, group, description, method, value_range, tasks,
-                                      count_like, func)
+                                      count_like, func, basis)
         return func
 
     return register
 
 
 def column_summary(prefix: str, group: str, description: str, method: str,
-                   value_range: str, tasks: str = BOTH):
+                   value_range: str, tasks: str = BOTH, basis: str = "exact"):
     """Register ``func(profile) -> ndarray`` (one value per column) as six summaries.
 
     NaN entries (columns where the quantity is undefined) are left out of the summary;
@@ -107,7 +127,8 @@ def column_summary(prefix: str, group: str, description: str, method: str,
         def per_column(profile: DatasetProfile) -> np.ndarray:
             key = ("column_summary", prefix)
             if key not in profile.cache:
-                values = np.asarray(func(profile), dtype=float)
+                with np.errstate(all="ignore"):
+                    values = np.asarray(func(profile), dtype=float)
                 profile.cache[key] = values[np.isfinite(values)]
             return profile.cache[key]
 
@@ -123,7 +144,7 @@ def column_summary(prefix: str, group: str, description: str, method: str,
                 return float(_reduce(values)) if values.size else float("nan")
 
             meta_feature(f"{prefix}_{stat}", group, f"{description} ({stat} over columns)",
-                         method, value_range, tasks)(summary)
+                         method, value_range, tasks, basis=basis)(summary)
         return func
 
     return register

@@ -1,39 +1,76 @@
-"""Turn a raw table into a :class:`DatasetProfile`: typed columns, a target, warnings.
+"""Turn a table into a :class:`DatasetProfile`: typed columns, a target, warnings.
 
 Every meta-feature function reads a profile, never the raw table, so the typing rules
-and the handling of dirty columns live in one place.
+and the handling of dirty columns live in one place. The table is read once, in batches
+(:mod:`.scan`); the profile holds exact one-pass summaries of every row plus a seeded
+sample of at most ``SAMPLE_CAP`` rows (all rows when the table is smaller).
 
-Column typing rules (applied to every column but the target):
+Column typing rules (applied to every column but the target, in this order):
 
-* booleans: a bool dtype, or exactly the two values {0, 1} / {"true", "false"} / {"yes", "no"};
-* datetimes: a datetime dtype, or strings of which at least 95 % of a 200-value sample
-  parse as dates; they are counted but not otherwise used;
-* identifiers: integer or string columns whose values are all distinct (and, for
-  integers, a contiguous or increasing run is not required) in a table of more than 20
-  rows; dropped with a warning;
-* constant and all-missing columns: dropped with a warning;
-* numeric: any other numeric column, except integer columns with at most
-  ``INTEGER_CATEGORY_MAX_LEVELS`` distinct values *and* a name that marks them as a code
-  (ending in ``_id``, ``_code``, ``_type``, ``_class``, ``_cat`` or ``_group``), which are
-  categorical: the number itself carries no order there;
-* categorical: everything else (strings, pandas categoricals, mixed types).
-  Mixed-type columns (numbers and strings together) get a warning.
-  Infinite values in numeric columns are treated as missing, with a warning.
+* unsupported Arrow types (lists, structs, maps): read as their text form;
+* all-missing: no non-missing (for numbers: no finite) value -- dropped, warned;
+* date/time: a date, time or timestamp type, or text of which at least 95 % of the
+  sampled values (first 200 non-missing) look like and parse as dates -- counted in
+  ``datetime_column_fraction`` but not used as features, warned;
+* constant: one distinct value -- dropped, warned;
+* boolean: a bool type, numbers whose only values are 0 and 1, or text with exactly two
+  values forming true/false, yes/no, t/f or y/n (any case) -- used as 0/1 numbers;
+* identifier: whole numbers that are all distinct (more than 20 values) and either fill a
+  dense range (max - min + 1 <= 2 x count) or sit in a column named like an id (``id``,
+  ``..._id``, ``...Id``, ``...ID``); or text whose (more than 20) non-missing values are
+  all distinct -- dropped, warned. Beyond ``LEVEL_CAP`` distinct values "all distinct"
+  means an estimated distinct count of at least 97 % of the values (the sketch's error
+  is about 1.6 %);
+* integer-coded categorical: whole numbers with 3 to ``INTEGER_CATEGORY_MAX_LEVELS``
+  distinct values *and* a name that marks a code (ending in ``_id``, ``_code``,
+  ``_type``, ``_class``, ``_cat``, ``_category``, ``_group``, ``_kind``, ``_zip``,
+  ``_level``, or named ``code``, ``type``, ``kind``, ``category``, ``zip``): both pieces
+  of evidence are needed, since few integer levels alone (ratings, counts of children)
+  usually do carry an order;
+* numbers stored as text: text of which at least 95 % (but not all) of the values parse
+  as decimal numbers -- used as numbers, the rest treated as missing, warned. Text that
+  is entirely numeric (zip codes, codes with leading zeros) stays categorical: it was
+  stored as text on purpose;
+* numeric: every other number column. Infinite values are treated as missing (in the
+  numeric and the missing groups), warned;
+* categorical: everything else. Text that mixes numbers and words (5 % to 95 % of the
+  values parse as numbers, or Python objects of several types in a DataFrame) is
+  categorical, warned. High-cardinality columns (more than max(50, half the
+  non-missing values) levels) are kept for the categorical summaries but left out of the
+  model-based groups (landmarks, information, complexity), warned.
 """
 
 from __future__ import annotations
 
-import hashlib
+import os
+import re
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 
 from warmstart.errors import BadInputError
+from warmstart.fingerprint.scan import (
+    BATCH_ROWS,
+    DATETIME,
+    LEVEL_CAP,
+    NUMBER,
+    SAMPLE_CAP,
+    Scan,
+    parse_numbers,
+    scan,
+    source_of,
+)
 
 INTEGER_CATEGORY_MAX_LEVELS = 50
-_CODE_SUFFIXES = ("_id", "_code", "_type", "_class", "_cat", "_group")
+ID_MIN_VALUES = 20
+_CODE_SUFFIXES = ("_id", "_code", "_type", "_class", "_cat", "_category", "_group", "_kind",
+                  "_zip", "_level")
+_CODE_NAMES = {"code", "type", "kind", "category", "zip"}
+_ID_NAME = re.compile(r"(^id$|_id$|[a-z0-9]Id$|ID$)")
 _BOOL_STRINGS = ({"true", "false"}, {"yes", "no"}, {"t", "f"}, {"y", "n"})
+_TRUE = {"true", "yes", "t", "y"}
 CLASSIFICATION, REGRESSION = "classification", "regression"
 TASKS = (CLASSIFICATION, REGRESSION)
 
@@ -42,6 +79,10 @@ TASKS = (CLASSIFICATION, REGRESSION)
 class DatasetProfile:
     """A typed view of a table, ready for meta-feature functions.
 
+    Row-level arrays (``numeric``, ``categorical``, ``missing_mask``, ``y``) hold the
+    sample (``sample_rows`` rows, all of them for a table of at most ``SAMPLE_CAP`` rows);
+    the ``*_moments``, counts and ``class_counts`` fields are exact over every row.
+
     Attributes
     ----------
     task : {"classification", "regression"}
@@ -49,23 +90,46 @@ class DatasetProfile:
         Rows of the table (all of them, including rows with a missing target).
     n_columns : int
         Feature columns (the target excluded), before any were dropped.
-    numeric : ndarray of shape (n_rows, n_numeric)
-        Numeric columns as float64, NaN for missing (and for infinite values).
-    categorical : list of ndarray
-        One integer-code array per categorical column, -1 for missing.
+    numeric : ndarray of shape (sample_rows, n_numeric)
+        Numeric and boolean columns as float64, NaN for missing (and infinite) values.
+    categorical : list of ndarray of shape (sample_rows,)
+        One integer-code array per categorical column (codes in sorted level order),
+        -1 for missing.
     categorical_levels : list of int
-        Number of distinct non-missing levels per categorical column.
+        Distinct non-missing levels per categorical column, over all rows (estimated
+        beyond ``LEVEL_CAP`` levels).
     n_boolean, n_datetime : int
         Counts of boolean and datetime columns (boolean columns are also in ``numeric``).
-    missing_mask : ndarray of shape (n_rows, n_columns) of bool
-        Missingness of every feature column, dropped columns included.
-    y : ndarray of shape (n_rows,)
+    missing_mask : ndarray of shape (sample_rows, n_columns) of bool
+        Missingness of every feature column in the sample, dropped columns included.
+    y : ndarray of shape (sample_rows,)
         Regression: float target, NaN where missing. Classification: integer class codes
         (0..classes-1, sorted by label), -1 where missing.
     classes : int
         Number of classes (classification), 0 for regression.
     warnings : list of str
         What was noticed and done with dirty columns.
+    sample_rows : int
+    numeric_boolean : ndarray of shape (n_numeric,) of bool
+    numeric_moments : ndarray of shape (5, n_numeric)
+        Per numeric column over all rows: count, mean, M2, M3, M4 (sums of centred powers).
+    numeric_integer : ndarray of shape (n_numeric,) of bool
+    categorical_counts : list of (ndarray or None)
+        Exact level counts over all rows; None beyond ``LEVEL_CAP`` levels.
+    categorical_high : ndarray of shape (n_categorical,) of bool
+        High-cardinality columns (left out of the model-based groups).
+    missing_cells, missing_rows : int
+    missing_by_column : ndarray of shape (n_columns,)
+    missing_patterns : ndarray or None
+        Row count of each missingness pattern over all rows; None beyond ``PATTERN_CAP``.
+    class_counts : ndarray of shape (classes,)
+    target_moments : ndarray of shape (5,)
+        Regression target over all rows: count, mean, M2, M3, M4.
+    target_zeros, target_missing : int
+    distinct_rows : float
+        Distinct rows (exact up to 4096, estimated beyond).
+    sample_priority : ndarray of shape (sample_rows,) of uint64
+        Each sampled row's sampling priority (smaller = drawn earlier), for sub-samples.
     """
 
     task: str
@@ -85,6 +149,22 @@ class DatasetProfile:
     dataset_hash: str
     warnings: list[str] = field(default_factory=list)
     cache: dict = field(default_factory=dict, repr=False)
+    sample_rows: int = 0
+    numeric_boolean: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))
+    numeric_moments: np.ndarray = field(default_factory=lambda: np.zeros((5, 0)))
+    numeric_integer: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))
+    categorical_counts: list = field(default_factory=list)
+    categorical_high: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))
+    missing_cells: int = 0
+    missing_rows: int = 0
+    missing_by_column: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    missing_patterns: np.ndarray | None = None
+    class_counts: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    target_moments: np.ndarray = field(default_factory=lambda: np.full(5, np.nan))
+    target_zeros: int = 0
+    target_missing: int = 0
+    distinct_rows: float = float("nan")
+    sample_priority: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.uint64))
 
 
 def infer_task(y: pd.Series) -> str:
@@ -99,181 +179,295 @@ def infer_task(y: pd.Series) -> str:
         return CLASSIFICATION
     arr = values.to_numpy(dtype=float)
     finite = arr[np.isfinite(arr)]
-    if finite.size and np.all(finite == np.round(finite)) and np.unique(finite).size <= 20:
-        return CLASSIFICATION
-    return REGRESSION
+    return _task_from(bool(finite.size) and bool(np.all(finite == np.round(finite))),
+                      float(np.unique(finite).size))
 
 
-def table_hash(df: pd.DataFrame, target: str) -> str:
-    """SHA-256 of a table's content (values, column names, the target's name), hex.
-
-    Identical content gives the identical hash, which is how the history recognises a
-    dataset logged twice; a hash cannot be turned back into rows.
-    """
-    h = hashlib.sha256()
-    h.update(repr((list(map(str, df.columns)), target)).encode())
-    h.update(pd.util.hash_pandas_object(df, index=False).to_numpy().tobytes())
-    return h.hexdigest()
+def _task_from(integer: bool, distinct: float) -> str:
+    return CLASSIFICATION if integer and distinct <= 20 else REGRESSION
 
 
 def profile_frame(df: pd.DataFrame, target: str, task: str | None = None) -> DatasetProfile:
-    """Build a :class:`DatasetProfile` from a DataFrame.
+    """Build a :class:`DatasetProfile` from a DataFrame (see :func:`profile_table`)."""
+    return profile_table(df, target, task)
 
-    Raises :class:`BadInputError` when the table cannot describe a supervised task: no
-    rows, a missing target column, fewer than two usable rows, or a constant target.
+
+def profile_table(data: pd.DataFrame | str | os.PathLike, target: str,
+                  task: str | None = None, *, sample_cap: int = SAMPLE_CAP,
+                  batch_rows: int = BATCH_ROWS) -> DatasetProfile:
+    """Build a :class:`DatasetProfile` from a DataFrame or a file, in one pass.
+
+    Parquet files are streamed in record batches of ``batch_rows`` rows; CSV and JSON
+    lines are read whole first. Raises :class:`BadInputError` when the table cannot
+    describe a supervised task: no rows, a missing target column, fewer than two usable
+    target values, or a constant target.
     """
-    if target not in df.columns:
-        cols = ", ".join(map(str, df.columns[:20]))
-        raise BadInputError(f"target column {target!r} not found; columns are: {cols}")
-    if df.columns.duplicated().any():
-        raise BadInputError("the table has duplicate column names")
     if task is not None and task not in TASKS:
         raise BadInputError(f"task must be 'classification' or 'regression', not {task!r}")
-    y_raw = df[target]
-    if len(df) == 0:
-        raise BadInputError("the table has no rows")
-    if y_raw.notna().sum() < 2:
-        raise BadInputError(f"target column {target!r} has fewer than two non-missing values")
-    task = task or infer_task(y_raw)
-    warnings: list[str] = []
-    features = df.drop(columns=[target])
-    missing_mask = features.isna().to_numpy()
+    if not isinstance(target, str):
+        target = str(target)
+    if isinstance(data, pd.DataFrame):
+        if target not in map(str, data.columns):
+            cols = ", ".join(map(str, data.columns[:20]))
+            raise BadInputError(f"target column {target!r} not found; columns are: {cols}")
+        if len(data) == 0:
+            raise BadInputError("the table has no rows")
+    if sample_cap < 10 or batch_rows < 1:
+        raise BadInputError("sample_cap must be at least 10 and batch_rows at least 1")
+    return build_profile(scan(source_of(data, batch_rows), target, sample_cap), task)
 
-    numeric_cols, numeric_names = [], []
-    cat_codes, cat_names, cat_levels = [], [], []
-    n_bool = n_dt = 0
-    dropped_constant, dropped_empty, dropped_ids, infinite, mixed = [], [], [], [], []
-    n = len(df)
-    for name in features.columns:
-        col = features[name]
-        label = str(name)
-        nonnull = col.dropna()
-        if nonnull.empty:
-            dropped_empty.append(label)
-            continue
-        if pd.api.types.is_datetime64_any_dtype(col) or _looks_like_dates(nonnull):
-            n_dt += 1
-            continue
-        if _is_boolean(nonnull):
-            n_bool += 1
-            numeric_cols.append(_as_bool_float(col))
-            numeric_names.append(label)
-            continue
-        n_unique = nonnull.nunique()
-        if n_unique == 1:
-            dropped_constant.append(label)
-            continue
-        is_num = pd.api.types.is_numeric_dtype(col)
-        is_int = is_num and _integer_valued(nonnull)
-        if n > 20 and n_unique == len(nonnull) == n and (is_int or not is_num):
-            dropped_ids.append(label)
-            continue
-        if is_num and not (is_int and n_unique <= INTEGER_CATEGORY_MAX_LEVELS
-                           and label.lower().endswith(_CODE_SUFFIXES)):
-            values = col.to_numpy(dtype=float, na_value=np.nan)
-            bad = np.isinf(values)
-            if bad.any():
-                infinite.append(label)
-                values = np.where(bad, np.nan, values)
-            numeric_cols.append(values)
-            numeric_names.append(label)
-            continue
-        if col.dtype == object and _is_mixed(nonnull):
-            mixed.append(label)
-        codes, uniques = pd.factorize(col.astype("string") if col.dtype == object else col)
+
+# -- from a scan to a profile --------------------------------------------------------------
+@dataclass
+class _Columns:
+    numeric: list = field(default_factory=list)      # (name, sample values, stats or None)
+    categorical: list = field(default_factory=list)  # (name, sample values, counter, levels)
+    n_boolean: int = 0
+    n_datetime: int = 0
+    notes: dict = field(default_factory=dict)        # warning text -> [column labels]
+
+    def note(self, what: str, label: str) -> None:
+        self.notes.setdefault(what, []).append(label)
+
+
+_NOTES = (
+    "all-missing columns dropped",
+    "constant columns dropped",
+    "identifier-like columns (unique per row) dropped",
+    "unsupported column types read as text",
+    "infinite values treated as missing in",
+    "numbers stored as text (non-numbers treated as missing) in",
+    "mixed types (numbers and text) treated as categorical in",
+    "integer codes treated as categorical",
+    "date/time columns counted but not used as features",
+    "high-cardinality categorical columns (kept for the categorical summaries, left out of "
+    "landmarks, information and complexity)",
+)
+
+
+def build_profile(s: Scan, task: str | None = None) -> DatasetProfile:
+    """Type the columns of a :class:`Scan` and assemble the profile."""
+    cols = _Columns()
+    for c in s.feature_cols:
+        _type_column(s, c, cols)
+    warnings = [f"{what}: {', '.join(cols.notes[what])}" for what in _NOTES if what in cols.notes]
+
+    t = s.names.index(s.target)
+    y_sample, classes, counts, tmom, tzeros, tmissing, task = _target(s, t, task)
+    if tmissing:
+        warnings.append(f"{tmissing} rows with a missing target ignored by target-based "
+                        "meta-features")
+    n_sample = s.sample_index.size
+    numeric = (np.column_stack([v for _, v, _ in cols.numeric]) if cols.numeric
+               else np.empty((n_sample, 0)))
+    stats = [st for _, _, st in cols.numeric]
+    moments = np.array([st[0] if st is not None else np.full(5, np.nan) for st in stats]
+                       ).reshape(-1, 5).T
+    integer = np.array([bool(st[1]) if st is not None else True for st in stats], dtype=bool)
+    cat_codes, cat_counts, cat_levels, cat_high = [], [], [], []
+    for _, values, counter, levels in cols.categorical:
+        codes, _ = pd.factorize(pd.Series(values, dtype=object), sort=True)
         cat_codes.append(codes.astype(np.int64))
-        cat_names.append(label)
-        cat_levels.append(len(uniques))
-
-    for what, cols in (("all-missing columns dropped", dropped_empty),
-                       ("constant columns dropped", dropped_constant),
-                       ("identifier-like columns (unique per row) dropped", dropped_ids),
-                       ("infinite values treated as missing in", infinite),
-                       ("mixed types (numbers and text) treated as categorical in", mixed)):
-        if cols:
-            warnings.append(f"{what}: {', '.join(cols)}")
-    high_card = [nm for nm, k in zip(cat_names, cat_levels) if k > max(50, 0.5 * n)]
-    if high_card:
-        warnings.append(f"high-cardinality categorical columns: {', '.join(high_card)}")
-
-    y, classes = _encode_target(y_raw, task)
-    if task == CLASSIFICATION and classes < 2:
-        raise BadInputError(f"target column {target!r} is constant (one class)")
-    if task == REGRESSION and np.nanstd(y) == 0:
-        raise BadInputError(f"target column {target!r} is constant")
-    if y_raw.isna().any():
-        warnings.append(f"{int(y_raw.isna().sum())} rows with a missing target ignored by "
-                        "target and landmark meta-features")
-    numeric = np.column_stack(numeric_cols) if numeric_cols else np.empty((n, 0))
+        cat_counts.append(None if counter.overflowed else np.asarray(counter.counts))
+        cat_levels.append(int(round(levels[0])))
+        cat_high.append(levels[2])
+    patterns = None if s.patterns.overflowed else np.asarray(s.patterns.counts)
     return DatasetProfile(
-        task=task, n_rows=n, n_columns=features.shape[1], numeric=numeric,
-        numeric_names=numeric_names, categorical=cat_codes, categorical_names=cat_names,
-        categorical_levels=cat_levels, n_boolean=n_bool, n_datetime=n_dt,
-        missing_mask=missing_mask, y=y, classes=classes, target=str(target),
-        dataset_hash=table_hash(df, str(target)), warnings=warnings,
+        task=task, n_rows=s.n_rows, n_columns=len(s.feature_cols), numeric=numeric,
+        numeric_names=[nm for nm, _, _ in cols.numeric], categorical=cat_codes,
+        categorical_names=[nm for nm, _, _, _ in cols.categorical],
+        categorical_levels=cat_levels, n_boolean=cols.n_boolean, n_datetime=cols.n_datetime,
+        missing_mask=s.sample_missing, y=y_sample, classes=classes, target=s.target,
+        dataset_hash=s.dataset_hash, warnings=warnings, sample_rows=n_sample,
+        numeric_boolean=np.array([st is None for st in stats], dtype=bool),
+        numeric_moments=moments, numeric_integer=integer, categorical_counts=cat_counts,
+        categorical_high=np.array(cat_high, dtype=bool), missing_cells=s.missing_cells,
+        missing_rows=s.missing_rows, missing_by_column=s.missing_by_column,
+        missing_patterns=patterns, class_counts=counts, target_moments=tmom,
+        target_zeros=tzeros, target_missing=tmissing,
+        distinct_rows=_rows_distinct(s), sample_priority=s.sample_priority,
     )
 
 
-def _encode_target(y: pd.Series, task: str) -> tuple[np.ndarray, int]:
-    if task == REGRESSION:
-        try:
-            values = pd.to_numeric(y, errors="raise").to_numpy(dtype=float, na_value=np.nan)
-        except (ValueError, TypeError):
-            raise BadInputError(
-                f"target column {y.name!r} is not numeric, so it cannot be a regression target"
-            ) from None
-        values = np.where(np.isinf(values), np.nan, values)
-        return values, 0
-    codes, uniques = pd.factorize(y.astype("string") if y.dtype == object else y, sort=True)
-    return codes.astype(np.int64), len(uniques)  # -1 marks a missing label
+def _rows_distinct(s: Scan) -> float:
+    est, exact = s.row_distinct.estimate()
+    return est if exact else min(est, float(s.n_rows))
 
 
-def _integer_valued(values: pd.Series) -> bool:
-    if pd.api.types.is_integer_dtype(values):
-        return True
-    arr = values.to_numpy(dtype=float)
-    arr = arr[np.isfinite(arr)]
-    return bool(arr.size) and bool(np.all(arr == np.round(arr)))
+def _type_column(s: Scan, c: int, cols: _Columns) -> None:
+    label, kind = s.names[c], s.kinds[c]
+    if kind == "unsupported":
+        cols.note("unsupported column types read as text", label)
+    if kind == DATETIME:
+        if s.nonnull[c] == 0:
+            cols.note("all-missing columns dropped", label)
+        else:
+            cols.n_datetime += 1
+            cols.note("date/time columns counted but not used as features", label)
+        return
+    if kind == NUMBER:
+        _type_number(s, c, cols)
+    else:
+        _type_text(s, c, cols)
 
 
-def _is_boolean(values: pd.Series) -> bool:
-    if pd.api.types.is_bool_dtype(values):
-        return True
-    uniq = pd.unique(values)
-    if len(uniq) != 2:
+def _type_number(s: Scan, c: int, cols: _Columns) -> None:
+    label = s.names[c]
+    j = s.number_cols.index(c)
+    st = s.number
+    finite, lo, hi = st.finite[j], st.minimum[j], st.maximum[j]
+    if st.infinite[j]:
+        cols.note("infinite values treated as missing in", f"{label} ({int(st.infinite[j])})")
+    if finite == 0:
+        cols.note("all-missing columns dropped", label)
+        return
+    if lo == hi:
+        cols.note("constant columns dropped", label)
+        return
+    values = s.sample_numbers[:, j].copy()
+    values[~np.isfinite(values)] = np.nan
+    distinct, exact = s.column_distinct(c)
+    integer = bool(st.integer[j])
+    if s.types[c] == "bool" or (distinct == 2 and lo == 0 and hi == 1):
+        cols.n_boolean += 1
+        cols.numeric.append((label, values, None))
+        return
+    if integer and finite > ID_MIN_VALUES and _all_distinct(distinct, exact, finite) and (
+            hi - lo + 1 <= 2 * finite or _ID_NAME.search(label)):
+        cols.note("identifier-like columns (unique per row) dropped", label)
+        return
+    if integer and 3 <= distinct <= INTEGER_CATEGORY_MAX_LEVELS and _is_code_name(label):
+        cols.note("integer codes treated as categorical", label)
+        cols.categorical.append((label, values, s.column_levels(c),
+                                 (distinct, exact, False)))
+        return
+    moments = np.array([st.moments.n[j], st.moments.mean[j], st.moments.m2[j],
+                        st.moments.m3[j], st.moments.m4[j]])
+    cols.numeric.append((label, values, (moments, integer)))
+
+
+def _type_text(s: Scan, c: int, cols: _Columns) -> None:
+    label = s.names[c]
+    t = s.text_cols.index(c)
+    nonnull = s.nonnull[c]
+    if nonnull == 0:
+        cols.note("all-missing columns dropped", label)
+        return
+    distinct, exact = s.column_distinct(c)
+    counter = s.column_levels(c)
+    raw = s.sample_text[:, t]
+    if distinct == 1:
+        cols.note("constant columns dropped", label)
+        return
+    if distinct == 2 and exact:
+        lowered = {str(k).strip().lower() for k in counter.keys}
+        if lowered in _BOOL_STRINGS:
+            cols.n_boolean += 1
+            cols.numeric.append((label, _text_bool(raw), None))
+            return
+    share = s.parsed.finite[t] / nonnull
+    if 0.95 <= share < 1.0:
+        cols.note("numbers stored as text (non-numbers treated as missing) in",
+                  f"{label} ({int(nonnull - s.parsed.finite[t])})")
+        values = _parse_sample(raw)
+        p = s.parsed.moments
+        moments = np.array([p.n[t], p.mean[t], p.m2[t], p.m3[t], p.m4[t]])
+        cols.numeric.append((label, values, (moments, bool(s.parsed.integer[t]))))
+        return
+    if share < 0.95 and _looks_like_dates(raw):
+        cols.n_datetime += 1
+        cols.note("date/time columns counted but not used as features", label)
+        return
+    if nonnull > ID_MIN_VALUES and _all_distinct(distinct, exact, nonnull):
+        cols.note("identifier-like columns (unique per row) dropped", label)
+        return
+    if label in s.mixed or 0.05 < share < 0.95:
+        cols.note("mixed types (numbers and text) treated as categorical in", label)
+    high = distinct > max(50.0, 0.5 * nonnull)
+    if high:
+        cols.note("high-cardinality categorical columns (kept for the categorical summaries, "
+                  "left out of landmarks, information and complexity)", label)
+    cols.categorical.append((label, raw, counter, (distinct, exact, bool(high))))
+
+
+def _all_distinct(distinct: float, exact: bool, count: float) -> bool:
+    return distinct >= count if exact else distinct >= 0.97 * count
+
+
+def _is_code_name(label: str) -> bool:
+    low = label.lower()
+    return low.endswith(_CODE_SUFFIXES) or low in _CODE_NAMES
+
+
+def _text_bool(raw: np.ndarray) -> np.ndarray:
+    out = np.full(raw.size, np.nan)
+    for i, v in enumerate(raw):
+        if v is not None:
+            out[i] = 1.0 if str(v).strip().lower() in _TRUE else 0.0
+    return out
+
+
+def _parse_sample(raw: np.ndarray) -> np.ndarray:
+    values = parse_numbers(pa.array([v if v is None else str(v) for v in raw],
+                                    type=pa.large_string()))
+    values[~np.isfinite(values)] = np.nan
+    return values
+
+
+def _looks_like_dates(raw: np.ndarray) -> bool:
+    values = pd.Series([v for v in raw if v is not None][:200], dtype=object).astype(str)
+    if values.empty or not values.str.contains(r"\d{1,4}[-/.:]\d{1,2}", regex=True).mean() >= 0.95:
         return False
-    if pd.api.types.is_numeric_dtype(values):
-        return set(np.asarray(uniq, dtype=float).tolist()) == {0.0, 1.0}
-    lowered = {str(u).strip().lower() for u in uniq}
-    return lowered in _BOOL_STRINGS
-
-
-def _as_bool_float(col: pd.Series) -> np.ndarray:
-    if pd.api.types.is_numeric_dtype(col):
-        return col.to_numpy(dtype=float, na_value=np.nan)
-    lowered = col.astype("string").str.strip().str.lower()
-    return lowered.map({"true": 1.0, "yes": 1.0, "t": 1.0, "y": 1.0, "false": 0.0, "no": 0.0,
-                        "f": 0.0, "n": 0.0}).to_numpy(dtype=float, na_value=np.nan)
-
-
-def _looks_like_dates(values: pd.Series) -> bool:
-    if values.dtype != object and not pd.api.types.is_string_dtype(values):
-        return False
-    sample = values.astype(str).head(200)
-    if not sample.str.contains(r"\d{1,4}[-/.:]\d{1,2}", regex=True).mean() >= 0.95:
-        return False
-    parsed = pd.to_datetime(sample, errors="coerce", format="mixed")
+    parsed = pd.to_datetime(values, errors="coerce", format="mixed")
     return bool(parsed.notna().mean() >= 0.95)
 
 
-def _is_mixed(values: pd.Series) -> bool:
-    kinds = {type(v) for v in values.head(10000)}
-    has_number = any(issubclass(k, (int, float, np.number)) and k is not bool for k in kinds)
-    has_text = str in kinds
-    if has_number and has_text:
-        return True
-    if has_text:
-        as_num = pd.to_numeric(values.head(10000), errors="coerce")
-        share = as_num.notna().mean()
-        return 0.05 < share < 0.95
-    return False
+def _target(s: Scan, t: int, task: str | None):
+    """(sample y, classes, exact class counts, moments, zeros, missing, task)."""
+    name = s.target
+    if s.kinds[t] == NUMBER:
+        j = s.number_cols.index(t)
+        st, raw = s.number, s.sample_numbers[:, j]
+        mom = st.moments
+        stats = (np.array([mom.n[j], mom.mean[j], mom.m2[j], mom.m3[j], mom.m4[j]]),
+                 int(st.zeros[j]), int(s.n_rows - st.finite[j]), bool(st.integer[j]))
+        numeric_ok, boolean = True, s.types[t] == "bool"
+    elif s.kinds[t] == DATETIME:
+        raise BadInputError(f"target column {name!r} holds dates, which cannot be a target")
+    else:
+        k = s.text_cols.index(t)
+        st, raw = s.parsed, s.sample_text[:, k]
+        mom = st.moments
+        stats = (np.array([mom.n[k], mom.mean[k], mom.m2[k], mom.m3[k], mom.m4[k]]),
+                 int(st.zeros[k]), int(s.n_rows - st.finite[k]), bool(st.integer[k]))
+        numeric_ok, boolean = st.finite[k] == s.nonnull[t], False
+    moments, zeros, missing, integer = stats
+    counter = s.column_levels(t)
+    labelled = s.nonnull[t] if s.kinds[t] != NUMBER else moments[0]
+    if labelled < 2:
+        raise BadInputError(f"target column {name!r} has fewer than two non-missing values")
+    if task is None:
+        if s.kinds[t] != NUMBER or boolean:
+            task = CLASSIFICATION
+        else:
+            task = _task_from(integer, s.column_distinct(t)[0])
+    if task == REGRESSION:
+        if not numeric_ok:
+            raise BadInputError(f"target column {name!r} is not numeric, so it cannot be a "
+                                "regression target")
+        if not moments[2] > 0:
+            raise BadInputError(f"target column {name!r} is constant")
+        y = raw.astype(float) if s.kinds[t] == NUMBER else _parse_sample(raw)
+        y = np.where(np.isfinite(y), y, np.nan)
+        return y, 0, np.zeros(0), moments, zeros, missing, task
+    if counter.overflowed:
+        raise BadInputError(f"target column {name!r} has more than {LEVEL_CAP} distinct "
+                            "labels, too many for classification")
+    labels, counts = counter.keys, np.asarray(counter.counts, dtype=float)
+    if labels.size < 2:
+        raise BadInputError(f"target column {name!r} is constant (one class)")
+    lookup = {v: i for i, v in enumerate(labels.tolist())}
+    y = np.array([lookup.get(v, -1) if v is not None and v == v else -1 for v in raw.tolist()],
+                 dtype=np.int64)
+    missing = int(s.n_rows - counts.sum())
+    return y, int(labels.size), counts, np.full(5, np.nan), 0, missing, task

@@ -60,3 +60,18 @@ def datetime_column_fraction(p: DatasetProfile) -> float:
 def dropped_column_fraction(p: DatasetProfile) -> float:
     used = len(p.numeric_names) + len(p.categorical_names) + p.n_datetime
     return _fraction(p.n_columns - used, p)
+
+
+@meta_feature("duplicate_row_fraction", SHAPE, "Share of rows that repeat an earlier row",
+              "1 - distinct rows / rows; distinct rows counted from 64-bit row hashes, "
+              "exactly up to 4096 and by a k-minimum-values sketch beyond (Beyer et al. "
+              "2007)", "[0, 1)", basis="sketch")
+def duplicate_row_fraction(p: DatasetProfile) -> float:
+    return float(max(0.0, 1.0 - p.distinct_rows / p.n_rows))
+
+
+@meta_feature("sample_rows", SHAPE, "Rows in the seeded sample used by sample-based groups",
+              "min(rows, SAMPLE_CAP) rows of smallest seeded hash priority (bookkeeping; "
+              "left out of distances)", "[1, 5000]", count_like=True, basis="sample")
+def sample_rows(p: DatasetProfile) -> float:
+    return p.sample_rows

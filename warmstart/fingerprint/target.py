@@ -3,20 +3,31 @@
 import numpy as np
 from scipy import stats
 
-from warmstart.fingerprint.catalogue import CLASSIFICATION, REGRESSION, group, meta_feature
+from warmstart.fingerprint.catalogue import (
+    BOTH,
+    CLASSIFICATION,
+    REGRESSION,
+    group,
+    meta_feature,
+)
 from warmstart.fingerprint.profile import DatasetProfile
+from warmstart.fingerprint.sketches import shape_statistics
 
 TARGET = group("target", "Target: class balance or distribution")
 
 
 def class_counts(p: DatasetProfile) -> np.ndarray:
-    """Counts per class, shape (classes,), labelled rows only."""
-    y = p.y[p.y >= 0].astype(np.int64)
-    return np.bincount(y, minlength=p.classes).astype(float)
+    """Counts per class over all rows, shape (classes,), labelled rows only."""
+    return np.asarray(p.class_counts, dtype=float)
 
 
-def _y(p: DatasetProfile) -> np.ndarray:
+def _sample_y(p: DatasetProfile) -> np.ndarray:
     return p.y[np.isfinite(p.y)]
+
+
+def _shape(p: DatasetProfile) -> tuple[float, float, float]:
+    skew, kurt, cv = shape_statistics(p.target_moments.reshape(5, 1))
+    return float(skew[0]), float(kurt[0]), float(cv[0])
 
 
 @meta_feature("classes", TARGET, "Number of classes", "count of distinct target labels",
@@ -68,37 +79,49 @@ def imbalance_degree(p: DatasetProfile) -> float:
               "Fisher-Pearson g1 = m3 / m2^1.5 (biased, as scipy.stats.skew default)",
               "(-inf, inf)", REGRESSION)
 def target_skewness(p: DatasetProfile) -> float:
-    return float(stats.skew(_y(p)))
+    return _shape(p)[0]
 
 
 @meta_feature("target_kurtosis", TARGET, "Excess kurtosis of the regression target",
               "g2 = m4 / m2^2 - 3 (biased, as scipy.stats.kurtosis default)",
               "[-2, inf)", REGRESSION)
 def target_kurtosis(p: DatasetProfile) -> float:
-    return float(stats.kurtosis(_y(p)))
+    return _shape(p)[1]
 
 
 @meta_feature("target_variation", TARGET,
               "Coefficient of variation of the regression target",
               "std / |mean| (population std); NaN when the mean is 0", "[0, inf)", REGRESSION)
 def target_variation(p: DatasetProfile) -> float:
-    y = _y(p)
-    mean = y.mean()
-    return float(y.std() / abs(mean)) if mean != 0 else float("nan")
+    return _shape(p)[2]
 
 
 @meta_feature("target_zero_fraction", TARGET, "Share of regression targets exactly zero",
               "count(y == 0) / count(y)", "[0, 1]", REGRESSION)
 def target_zero_fraction(p: DatasetProfile) -> float:
-    return float(np.mean(_y(p) == 0))
+    return p.target_zeros / p.target_moments[0]
 
 
 @meta_feature("target_outlier_fraction", TARGET,
               "Share of regression targets outside the 1.5 IQR fences",
               "count(y < Q1 - 1.5 IQR or y > Q3 + 1.5 IQR) / count(y) (Tukey 1977)",
-              "[0, 1]", REGRESSION)
+              "[0, 1]", REGRESSION, basis="sample")
 def target_outlier_fraction(p: DatasetProfile) -> float:
-    y = _y(p)
+    y = _sample_y(p)
     q1, q3 = np.quantile(y, [0.25, 0.75])
     iqr = q3 - q1
     return float(np.mean((y < q1 - 1.5 * iqr) | (y > q3 + 1.5 * iqr)))
+
+
+@meta_feature("majority_class_share", TARGET, "Share of labelled rows in the largest class",
+              "max count / labelled rows (the accuracy of always predicting it)", "(0, 1]",
+              CLASSIFICATION)
+def majority_class_share(p: DatasetProfile) -> float:
+    counts = class_counts(p)
+    return float(counts.max() / counts.sum())
+
+
+@meta_feature("target_missing_fraction", TARGET, "Share of rows whose target is missing",
+              "rows with a missing (or infinite) target / rows", "[0, 1)", BOTH)
+def target_missing_fraction(p: DatasetProfile) -> float:
+    return p.target_missing / p.n_rows

@@ -1,0 +1,454 @@
+"""One pass over a table, batch by batch, into the summaries a fingerprint is computed from.
+
+A DataFrame is first converted to Arrow and cut into record batches; a Parquet file is
+read with ``iter_batches``; both then go through the same :class:`Scanner`, so a frame and
+its Parquet file give the same summaries. Per batch every column is turned into a numpy
+array once and processed with whole-array operations (columns one after another, so each
+stays in cache). What is kept between batches is bounded (see :mod:`.sketches`):
+
+* exact, mergeable: row count, per-column missing / infinite / zero counts, min, max,
+  integer-valuedness, moments up to the 4th (numbers, and text parsed as numbers), missing
+  cells and rows, and the table hash;
+* exact while small, approximate beyond: level counts (up to ``LEVEL_CAP`` levels, then a
+  k-minimum-values distinct count), missingness patterns (up to ``PATTERN_CAP``), distinct
+  rows (k-minimum-values over row hashes);
+* a seeded uniform sample of ``SAMPLE_CAP`` rows, for everything else.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from warmstart.errors import BadInputError
+from warmstart.fingerprint.sketches import (
+    NULL_HASH,
+    BottomKSample,
+    DistinctSketch,
+    LevelCounter,
+    Moments,
+    hash_floats,
+    hash_ints,
+    key_of,
+    mix64,
+    sorted_distinct,
+    unique_counts,
+)
+from warmstart.io import is_parquet, open_parquet, read_table
+
+NUMBER, DATETIME, TEXT, UNSUPPORTED = "number", "datetime", "text", "unsupported"
+BATCH_ROWS = 65536
+SAMPLE_CAP = 5000
+LEVEL_CAP = 4096
+PATTERN_CAP = 4096
+DISTINCT_K = 4096
+SEED = 20021
+# Numbers as Arrow's string -> float64 cast reads them (decimal point, optional exponent).
+_NUMBER_RE = r"^\s*[-+]?([0-9]+(\.[0-9]*)?|\.[0-9]+)([eE][-+]?[0-9]+)?\s*$"
+
+
+@dataclass
+class Source:
+    """A table to scan: its Arrow schema, row count and a way to iterate its batches."""
+
+    schema: pa.Schema
+    n_rows: int
+    batches: Callable[[], Iterator[pa.RecordBatch]]
+    mixed: list[str] = field(default_factory=list)
+
+
+def frame_to_arrow(df: pd.DataFrame) -> tuple[pa.Table, list[str]]:
+    """Convert a DataFrame to Arrow, returning the table and the mixed-type columns.
+
+    Object columns holding numbers and text together, or Python objects Arrow cannot
+    type, become text (missing values kept) and are reported as mixed; object columns of
+    numbers only become numbers, so a frame and the Parquet file written from it agree.
+    """
+    names = [str(c) for c in df.columns]
+    if len(set(names)) != len(names):
+        raise BadInputError("the table has duplicate column names")
+    arrays, mixed = [], []
+    for name, (_, col) in zip(names, df.items()):
+        if col.dtype == object:
+            kind = pd.api.types.infer_dtype(col, skipna=True)
+            if kind in ("integer", "floating", "mixed-integer-float", "decimal"):
+                col = pd.to_numeric(col, errors="coerce")
+            elif kind in ("mixed", "mixed-integer", "complex", "bytes", "period", "interval"):
+                mixed.append(name)
+                col = col.map(lambda v: v if _is_missing(v) else str(v)).astype(object)
+        try:
+            arr = pa.array(col, from_pandas=True)
+        except (pa.ArrowException, TypeError, ValueError):
+            mixed.append(name)
+            arr = pa.array(col.map(lambda v: None if _is_missing(v) else str(v)),
+                           type=pa.large_string())
+        if isinstance(arr, pa.ChunkedArray):
+            arr = arr.combine_chunks()
+        arrays.append(arr)
+    return pa.Table.from_arrays(arrays, names=names), sorted(set(mixed))
+
+
+def _is_missing(v) -> bool:
+    try:
+        return bool(pd.isna(v))
+    except (TypeError, ValueError):
+        return False
+
+
+def source_of(data: pd.DataFrame | str | os.PathLike, batch_rows: int = BATCH_ROWS) -> Source:
+    """Wrap a DataFrame or a file (Parquet streamed; CSV / JSON lines read whole)."""
+    if not isinstance(data, pd.DataFrame):
+        if is_parquet(data):
+            schema, n_rows, batches = open_parquet(data, batch_rows)
+            return Source(schema, n_rows, batches)
+        data = read_table(data)
+    table, mixed = frame_to_arrow(data)
+    return Source(table.schema, table.num_rows,
+                  lambda: iter(table.to_batches(max_chunksize=batch_rows)), mixed)
+
+
+def kind_of(t: pa.DataType) -> str:
+    """How a column of Arrow type ``t`` is read: number, datetime, text or unsupported."""
+    if pa.types.is_dictionary(t):
+        return TEXT
+    if (pa.types.is_boolean(t) or pa.types.is_integer(t) or pa.types.is_floating(t)
+            or pa.types.is_decimal(t) or pa.types.is_null(t) or pa.types.is_duration(t)):
+        return NUMBER
+    if pa.types.is_timestamp(t) or pa.types.is_date(t) or pa.types.is_time(t):
+        return DATETIME
+    if (pa.types.is_string(t) or pa.types.is_large_string(t) or pa.types.is_binary(t)
+            or pa.types.is_large_binary(t)):
+        return TEXT
+    return UNSUPPORTED
+
+
+# -- per-batch conversions -----------------------------------------------------------------
+def as_float(arr: pa.Array) -> np.ndarray:
+    """A number column as float64, NaN for missing (integers beyond 2**53 are rounded)."""
+    t = arr.type
+    if pa.types.is_null(t):
+        return np.full(len(arr), np.nan)
+    if pa.types.is_duration(t):
+        arr = arr.cast(pa.int64())
+    if t != pa.float64():
+        arr = pc.cast(arr, pa.float64(), safe=False)
+    return np.asarray(arr.to_numpy(zero_copy_only=False), dtype=np.float64)
+
+
+def as_nanoseconds(arr: pa.Array) -> tuple[np.ndarray, np.ndarray]:
+    """A date/time column as (int64 values, missing mask)."""
+    t = arr.type
+    null = np.asarray(arr.is_null().to_numpy(zero_copy_only=False), dtype=bool)
+    if pa.types.is_date(t):
+        arr = pc.cast(arr, pa.timestamp("ns"), safe=False)
+    elif pa.types.is_timestamp(t):
+        arr = pc.cast(arr, pa.timestamp("ns", t.tz), safe=False)
+    elif pa.types.is_time32(t):
+        arr = arr.cast(pa.int32())
+    values = arr.cast(pa.int64()).fill_null(0).to_numpy(zero_copy_only=False)
+    return np.asarray(values, dtype=np.int64), null
+
+
+def as_text(arr: pa.Array) -> tuple[np.ndarray, pa.Array]:
+    """A text column as (int64 codes, -1 for missing; dictionary of distinct strings)."""
+    if kind_of(arr.type) == UNSUPPORTED:
+        arr = pa.array([None if v is None else repr(v) for v in arr.to_pylist()],
+                       type=pa.large_string())
+    enc = arr if pa.types.is_dictionary(arr.type) else pc.dictionary_encode(arr)
+    codes = np.asarray(enc.indices.cast(pa.int64()).fill_null(-1).to_numpy(
+        zero_copy_only=False), dtype=np.int64)
+    d = enc.dictionary
+    if d.type != pa.large_string():
+        try:
+            d = pc.cast(d, pa.large_string())
+        except pa.ArrowException:
+            d = pa.array([None if v is None else (v.decode("utf-8", "replace")
+                          if isinstance(v, bytes) else str(v)) for v in d.to_pylist()],
+                         type=pa.large_string())
+    if d.null_count:
+        dnull = np.asarray(d.is_null().to_numpy(zero_copy_only=False), dtype=bool)
+        codes = np.where((codes >= 0) & dnull[np.maximum(codes, 0)], -1, codes)
+        d = d.fill_null("")
+    return codes, d
+
+
+def hash_strings(d: pa.Array, key: np.uint64) -> np.ndarray:
+    """Hash each string of a large_string array from its UTF-8 bytes, shape (len(d),).
+
+    Vectorised over the bytes: each byte is mixed with its position in its string, the
+    mixes are summed per string (``np.add.reduceat``) and mixed again with the length.
+    """
+    n = len(d)
+    if n == 0:
+        return np.zeros(0, dtype=np.uint64)
+    bufs = d.buffers()
+    offsets = np.frombuffer(bufs[1], dtype=np.int64)[d.offset: d.offset + n + 1]
+    data = (np.frombuffer(bufs[2], dtype=np.uint8) if bufs[2] is not None
+            else np.zeros(0, dtype=np.uint8))
+    starts, lengths = offsets[:-1], np.diff(offsets)
+    base = offsets[0]
+    body = data[base: offsets[-1]].astype(np.uint64)
+    sums = np.zeros(n, dtype=np.uint64)
+    if body.size:
+        within = np.arange(body.size, dtype=np.int64) - np.repeat(starts - base, lengths)
+        terms = mix64(((within.astype(np.uint64) << 8) | body) ^ key)
+        nonempty = lengths > 0
+        sums[nonempty] = np.add.reduceat(terms, (starts - base)[nonempty])
+    return mix64(sums ^ mix64(lengths.astype(np.uint64) ^ key))
+
+
+def parse_numbers(d: pa.Array) -> np.ndarray:
+    """Each string parsed as a decimal number, NaN where it is not one; shape (len(d),)."""
+    out = np.full(len(d), np.nan)
+    if len(d) == 0:
+        return out
+    ok = np.asarray(pc.match_substring_regex(d, _NUMBER_RE).fill_null(False).to_numpy(
+        zero_copy_only=False), dtype=bool)
+    if ok.any():
+        chosen = pc.utf8_trim_whitespace(d.filter(pa.array(ok)))
+        try:
+            out[ok] = pc.cast(chosen, pa.float64()).to_numpy(zero_copy_only=False)
+        except pa.ArrowException:
+            out[ok] = pd.to_numeric(pd.Series(chosen.to_pylist()), errors="coerce").to_numpy()
+    return out
+
+
+# -- the scan ------------------------------------------------------------------------------
+@dataclass
+class NumberStats:
+    """Per number column (and per text column, for its values parsed as numbers)."""
+
+    finite: np.ndarray       # count of finite values
+    infinite: np.ndarray     # count of +-inf
+    zeros: np.ndarray        # count of exact zeros
+    minimum: np.ndarray
+    maximum: np.ndarray
+    integer: np.ndarray      # bool: every finite value is a whole number
+    moments: Moments
+
+
+def _number_stats(n: int) -> NumberStats:
+    return NumberStats(np.zeros(n), np.zeros(n), np.zeros(n), np.full(n, np.inf),
+                       np.full(n, -np.inf), np.ones(n, dtype=bool), Moments(n))
+
+
+@dataclass
+class Scan:
+    """Everything one pass over the table produced (see the module docstring)."""
+
+    names: list[str]
+    kinds: list[str]
+    types: list[str]
+    target: str
+    n_rows: int
+    mixed: list[str]
+    number_cols: list[int]
+    text_cols: list[int]
+    datetime_cols: list[int]
+    feature_cols: list[int]          # every column but the target, in table order
+    nonnull: np.ndarray              # per column, count of non-missing (NaN/None) cells
+    number: NumberStats              # aligned with number_cols
+    parsed: NumberStats              # aligned with text_cols
+    levels: list[LevelCounter]       # aligned with number_cols + text_cols
+    distinct: list[DistinctSketch]   # aligned with number_cols + text_cols
+    missing_by_column: np.ndarray    # aligned with feature_cols (NaN, inf and None)
+    missing_cells: int
+    missing_rows: int
+    patterns: LevelCounter
+    row_distinct: DistinctSketch
+    dataset_hash: str
+    sample_index: np.ndarray
+    sample_priority: np.ndarray
+    sample_numbers: np.ndarray       # (sample, number_cols) float
+    sample_text: np.ndarray          # (sample, text_cols) object, None for missing
+    sample_missing: np.ndarray       # (sample, feature_cols) bool
+
+    def column_levels(self, col: int) -> LevelCounter:
+        return self.levels[self._slot(col)]
+
+    def column_distinct(self, col: int) -> tuple[float, bool]:
+        counter = self.levels[self._slot(col)]
+        if not counter.overflowed:
+            return float(counter.size), True
+        return self.distinct[self._slot(col)].estimate()
+
+    def _slot(self, col: int) -> int:
+        if col in self.number_cols:
+            return self.number_cols.index(col)
+        return len(self.number_cols) + self.text_cols.index(col)
+
+
+def scan(source: Source, target: str, sample_cap: int = SAMPLE_CAP) -> Scan:
+    """Read every batch of ``source`` once and summarise it (see :class:`Scan`)."""
+    names = list(source.schema.names)
+    if len(set(names)) != len(names):
+        raise BadInputError("the table has duplicate column names")
+    if target not in names:
+        cols = ", ".join(names[:20])
+        raise BadInputError(f"target column {target!r} not found; columns are: {cols}")
+    kinds = [kind_of(f.type) for f in source.schema]
+    number_cols = [i for i, k in enumerate(kinds) if k == NUMBER]
+    text_cols = [i for i, k in enumerate(kinds) if k in (TEXT, UNSUPPORTED)]
+    datetime_cols = [i for i, k in enumerate(kinds) if k == DATETIME]
+    feature_cols = [i for i, nm in enumerate(names) if nm != target]
+    feature_pos = {c: j for j, c in enumerate(feature_cols)}
+    keys = [key_of(nm) for nm in names]
+    n_num, n_txt, m = len(number_cols), len(text_cols), len(feature_cols)
+
+    number, parsed = _number_stats(n_num), _number_stats(n_txt)
+    levels = [LevelCounter(LEVEL_CAP) for _ in range(n_num + n_txt)]
+    distinct = [DistinctSketch(DISTINCT_K) for _ in range(n_num + n_txt)]
+    nonnull = np.zeros(len(names))
+    miss_col = np.zeros(m)
+    miss_cells = miss_rows = 0
+    patterns = LevelCounter(PATTERN_CAP)
+    row_distinct = DistinctSketch(DISTINCT_K)
+    sample = BottomKSample(sample_cap, SEED)
+    digest = hashlib.sha256(repr((names, target)).encode())
+    offset = 0
+
+    for batch in source.batches():
+        nb = batch.num_rows
+        if nb == 0:
+            continue
+        cand = sample.candidates(offset, nb)
+        row_h = np.zeros(nb, dtype=np.uint64)
+        mask = np.zeros((nb, m), dtype=bool)
+        payload: dict[str, np.ndarray] = {}
+        if cand is not None:
+            payload["num"] = np.empty((cand[0].size, n_num))
+            payload["text"] = np.empty((cand[0].size, n_txt), dtype=object)
+        moments_b = np.zeros((5, n_num))
+        for j, c in enumerate(number_cols):
+            x = as_float(batch.column(c))
+            ok = np.isfinite(x)
+            h = hash_floats(x, keys[c])
+            row_h += h
+            _update_numbers(number, moments_b, j, x, ok)
+            nonnull[c] += nb - int(np.isnan(x).sum())
+            _update_number_levels(levels[j], distinct[j], x[ok], h[ok], keys[c])
+            if c in feature_pos:
+                mask[:, feature_pos[c]] = ~ok
+            if cand is not None:
+                payload["num"][:, j] = x[cand[0]]
+        number.moments.merge(*moments_b)
+        parsed_b = np.zeros((5, n_txt))
+        for t, c in enumerate(text_cols):
+            codes, d = as_text(batch.column(c))
+            dh = np.append(hash_strings(d, keys[c]), NULL_HASH)
+            row_h += dh[codes]
+            present = codes >= 0
+            nonnull[c] += int(present.sum())
+            counts = np.bincount(codes[present], minlength=len(d))
+            used = np.flatnonzero(counts)
+            slot = n_num + t
+            if not levels[slot].overflowed:
+                if used.size > LEVEL_CAP:
+                    levels[slot].give_up()
+                else:
+                    levels[slot].add(np.asarray(d.take(pa.array(used)).to_numpy(
+                        zero_copy_only=False), dtype=object), counts[used].astype(float))
+            distinct[slot].add(dh[used])
+            values = np.append(parse_numbers(d), np.nan)[codes]
+            _update_numbers(parsed, parsed_b, t, values, np.isfinite(values))
+            if c in feature_pos:
+                mask[:, feature_pos[c]] = ~present
+            if cand is not None:
+                pos = codes[cand[0]]
+                vals = (np.asarray(d.take(pa.array(np.maximum(pos, 0))).to_numpy(
+                    zero_copy_only=False), dtype=object) if len(d)
+                    else np.full(pos.size, None, dtype=object))
+                vals[pos < 0] = None
+                payload["text"][:, t] = vals
+        parsed.moments.merge(*parsed_b)
+        for c in datetime_cols:
+            v, null = as_nanoseconds(batch.column(c))
+            row_h += hash_ints(v, null, keys[c])
+            nonnull[c] += nb - int(null.sum())
+            if c in feature_pos:
+                mask[:, feature_pos[c]] = null
+
+        miss_col += mask.sum(axis=0)
+        any_missing = mask.any(axis=1)
+        miss_cells += int(mask.sum())
+        miss_rows += int(any_missing.sum())
+        if not patterns.overflowed:
+            patterns.add(*unique_counts(_pattern_keys(mask)))
+        digest.update(row_h.astype("<u8").tobytes())
+        row_distinct.add(mix64(row_h))
+        if cand is not None:
+            payload["mask"] = mask[cand[0]]
+            sample.offer(offset, cand[0], cand[1], payload)
+        offset += nb
+
+    if offset == 0:
+        raise BadInputError("the table has no rows")
+    index, priority, payload = sample.in_row_order()
+    return Scan(
+        names=names, kinds=kinds, types=[str(f.type) for f in source.schema], target=target,
+        n_rows=offset, mixed=list(source.mixed), number_cols=number_cols,
+        text_cols=text_cols, datetime_cols=datetime_cols, feature_cols=feature_cols,
+        nonnull=nonnull, number=number, parsed=parsed, levels=levels, distinct=distinct,
+        missing_by_column=miss_col, missing_cells=miss_cells, missing_rows=miss_rows,
+        patterns=patterns, row_distinct=row_distinct, dataset_hash=digest.hexdigest(),
+        sample_index=index, sample_priority=priority,
+        sample_numbers=payload.get("num", np.empty((0, n_num))),
+        sample_text=payload.get("text", np.empty((0, n_txt), dtype=object)),
+        sample_missing=payload.get("mask", np.empty((0, m), dtype=bool)),
+    )
+
+
+def _update_numbers(stats: NumberStats, moments_b: np.ndarray, j: int, x: np.ndarray,
+                    ok: np.ndarray) -> None:
+    """Fold one column's batch into ``stats`` (moments are merged for all columns later)."""
+    v = x[ok]
+    stats.infinite[j] += int(np.isinf(x).sum())
+    if v.size == 0:
+        return
+    stats.finite[j] += v.size
+    stats.zeros[j] += int((v == 0).sum())
+    stats.minimum[j] = min(stats.minimum[j], v.min())
+    stats.maximum[j] = max(stats.maximum[j], v.max())
+    if stats.integer[j]:
+        stats.integer[j] = bool(np.all(v == np.round(v)))
+    mean = v.mean()
+    d = v - mean
+    d2 = d * d
+    moments_b[:, j] = (v.size, mean, d2.sum(), (d2 * d).sum(), (d2 * d2).sum())
+
+
+def _update_number_levels(counter: LevelCounter, sketch: DistinctSketch, v: np.ndarray,
+                          h: np.ndarray, key: np.uint64) -> None:
+    """Exact level counts while few, else the distinct sketch from the value hashes."""
+    if not counter.overflowed:
+        if v.size > 2 * LEVEL_CAP and sorted_distinct(v[: 2 * LEVEL_CAP + 1]).size > LEVEL_CAP:
+            counter.give_up()  # a prefix alone has too many distinct values
+        else:
+            counter.add(*unique_counts(v))
+            if not counter.overflowed:
+                sketch.add(hash_floats(sorted_distinct(v), key))
+                return
+    sketch.add(h)
+
+
+def _pattern_keys(mask: np.ndarray) -> np.ndarray:
+    """One uint64 per row identifying its missingness pattern (exact up to 64 columns)."""
+    n, m = mask.shape
+    if m == 0:
+        return np.zeros(n, dtype=np.uint64)
+    packed = np.packbits(mask, axis=1, bitorder="little")
+    width = -(-packed.shape[1] // 8) * 8
+    padded = np.zeros((n, width), dtype=np.uint8)
+    padded[:, : packed.shape[1]] = packed
+    words = padded.view("<u8")
+    key = words[:, 0].copy()
+    for w in range(1, words.shape[1]):
+        key = mix64(key ^ mix64(words[:, w] + np.uint64(w)))
+    return key
