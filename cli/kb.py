@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 
 import click
@@ -52,3 +53,100 @@ def kb_info_cmd(kb_path, as_json) -> None:
     click.echo(f"fingerprints by catalogue version: {versions or 'none'}")
 
 
+@kb_group.command("check")
+@kb_option
+@click.option("--repair", is_flag=True,
+              help="Remove leftovers of killed writers; set unreadable files aside.")
+@click.option("--grace", "grace_seconds", type=float, default=None,
+              help="Leftovers younger than this many seconds may belong to a running "
+                   "writer and are left alone [default: 900].")
+@json_option
+@handle_errors
+def kb_check_cmd(kb_path, repair, grace_seconds, as_json) -> None:
+    """Verify the history's integrity (exit code 1 when a problem remains)."""
+    report = KnowledgeBase(resolve_path(kb_path)).check(repair=repair,
+                                                        grace_seconds=grace_seconds)
+    if as_json:
+        emit_json(report.to_dict())
+    else:
+        c = report.counts
+        head = f"history {report.path} (format version {report.format_version})"
+        if c:
+            head += (f": {c['datasets']} datasets, {c['studies']} studies, "
+                     f"{c['trials']} trials in {c['files']} files")
+        click.echo(head)
+        rows = [[f.check, f.status, f.detail or "-"] for f in report.findings]
+        click.echo(table(rows, ["check", "result", "detail"], align="lll"))
+        n = len(report.problems)
+        click.echo("no problems found" if report.ok else f"{n} problem(s) found")
+    if not report.ok:
+        sys.exit(1)
+
+
+@kb_group.command("compact")
+@kb_option
+@json_option
+@handle_errors
+def kb_compact_cmd(kb_path, as_json) -> None:
+    """Merge each table's many small files into one (content unchanged)."""
+    out = KnowledgeBase(resolve_path(kb_path)).compact()
+    if as_json:
+        emit_json(out)
+        return
+    b, a = out["before"], out["after"]
+    rows = [[what, b[key], a[key]] for what, key in
+            (("files", "files"), ("datasets", "datasets"), ("studies", "studies"),
+             ("trials", "trials"), ("content hash", "content_hash"))]
+    rows[-1] = [rows[-1][0], b["content_hash"][:16], a["content_hash"][:16]]
+    click.echo(table(rows, ["", "before", "after"], align="lrr"))
+    click.echo(f"removed {out['removed']} merged files; content "
+               f"{'unchanged' if b['content_hash'] == a['content_hash'] else 'CHANGED'}")
+
+
+@kb_group.command("export")
+@click.argument("file", type=click.Path(path_type=Path))
+@kb_option
+@json_option
+@handle_errors
+def kb_export_cmd(file, kb_path, as_json) -> None:
+    """Write the whole history to one portable FILE (a ZIP of three Parquet tables)."""
+    out = KnowledgeBase(resolve_path(kb_path)).export(file)
+    if as_json:
+        emit_json(out)
+        return
+    click.echo(f"exported {out['datasets']} datasets, {out['studies']} studies, "
+               f"{out['trials']} trials to {out['file']} ({out['bytes'] / 1024:.1f} KiB)")
+
+
+@kb_group.command("import")
+@click.argument("file", type=click.Path(path_type=Path))
+@kb_option
+@json_option
+@handle_errors
+def kb_import_cmd(file, kb_path, as_json) -> None:
+    """Merge another team's exported FILE; studies already present are skipped."""
+    out = KnowledgeBase(resolve_path(kb_path)).import_(file)
+    if as_json:
+        emit_json(out)
+        return
+    click.echo(f"imported {out['studies_added']} studies ({out['trials_added']} trials, "
+               f"{out['datasets_added']} new datasets); {out['studies_already_present']} "
+               "studies were already present")
+
+
+@kb_group.command("migrate")
+@kb_option
+@json_option
+@handle_errors
+def kb_migrate_cmd(kb_path, as_json) -> None:
+    """Convert a history of an older format version to the current one, in place."""
+    out = KnowledgeBase.migrate(resolve_path(kb_path))
+    if as_json:
+        emit_json(out)
+        return
+    if not out["migrated"]:
+        click.echo(f"history {out['path']} already has format version {out['to_version']}")
+        return
+    click.echo(f"migrated {out['path']} from format {out['from_version']} to "
+               f"{out['to_version']}: {out['datasets']} datasets, {out['studies']} studies, "
+               f"{out['trials']} trials; old file kept at {out['backup']}")

@@ -8,17 +8,24 @@ Layout (format version 1)::
       studies/<id>.parquet       one row per study: family, metric, direction, label
       trials/<id>.parquet        one row per trial: configuration (JSON), score, time
 
-Each ``log`` writes its own files (named by the new study's id) and never rewrites
-another's. The study row is written last and is the commit point: readers see a study,
-and its trials, only once its study file exists, so a writer killed half-way leaves
-nothing visible behind (``kb check --repair`` removes what it left). Any engine can read
-the tables, e.g. ``pandas.read_parquet("<history>/trials")``.
+Each ``log`` writes its own three files, named ``<study_id>-<dataset_id>.parquet``
+(a fresh uuid4 study id), and never rewrites another's: the dataset row first, the
+trials next, the study row last. The study row is the commit point: readers see a
+study, its trials and its dataset row only once a study file holding it exists, so a
+writer killed at any moment leaves nothing visible behind (``kb check --repair``
+removes what it left, see :mod:`warmstart.maintenance`). Rows are de-duplicated by key
+on read (a dataset logged by several studies keeps its earliest row), which is what lets
+compaction merge files beside live readers and writers. No locks anywhere: see
+:mod:`warmstart.storage` for what this needs from a (network) filesystem. Any engine
+can read the tables, e.g. ``pandas.read_parquet("<history>/trials")``; readers of the
+raw files should apply the same visibility rule.
 """
 
 from __future__ import annotations
 
 import json
 import os
+import re
 import uuid
 from dataclasses import dataclass, replace
 from datetime import datetime, timezone
@@ -28,6 +35,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.dataset as pads
 
 from warmstart import __version__
 from warmstart.errors import BadInputError, NothingToSuggestError
@@ -36,7 +45,15 @@ from warmstart.fingerprint import Fingerprint, fingerprint, load_frame
 from warmstart.metrics import DEFAULT_METRIC, MAXIMIZE, MINIMIZE, resolve_metric
 from warmstart.similarity import Neighbour, nearest
 from warmstart.spaces import SearchSpace, config_key
-from warmstart.storage import read_dir, visible_files, write_atomic, write_bytes_atomic
+from warmstart.storage import (
+    _pause,
+    log_name,
+    parse_log_name,
+    read_dir,
+    visible_files,
+    write_atomic,
+    write_bytes_atomic,
+)
 from warmstart.strategies import (
     DEFAULT_STRATEGY,
     SuggestContext,
@@ -88,6 +105,28 @@ SCHEMAS: dict[str, pa.Schema] = {
     ]),
 }
 KEYS = {"datasets": ["dataset_id"], "studies": ["study_id"], "trials": ["study_id", "trial_index"]}
+# Among rows sharing a key, the first in this order wins, whatever file it came from.
+ORDER = {"datasets": ["dataset_id", "created_at", "name"], "studies": ["study_id", "created_at"],
+         "trials": ["study_id", "trial_index"]}
+
+
+def dedupe(table: pa.Table, name: str) -> pa.Table:
+    """Sort ``table`` (of history table ``name``) by key and keep one row per key.
+
+    The winner does not depend on which files the rows came from, so merging or
+    reordering files never changes what readers see.
+    """
+    if table.num_rows < 2:
+        return table
+    table = table.sort_by([(c, "ascending") for c in ORDER[name]])
+    keep = np.ones(table.num_rows, dtype=bool)
+    same = np.ones(table.num_rows - 1, dtype=bool)
+    for col in KEYS[name]:
+        a = table.column(col)
+        same &= pc.equal(a.slice(1), a.slice(0, table.num_rows - 1)).to_numpy(
+            zero_copy_only=False)
+    keep[1:] = ~same
+    return table if keep.all() else table.filter(pa.array(keep))
 
 
 def resolve_path(path: str | os.PathLike | None = None) -> Path:
@@ -141,11 +180,19 @@ class KnowledgeBase:
         except (ValueError, KeyError, TypeError):
             raise BadInputError(f"{marker} is not a valid history marker file") from None
         if version > FORMAT_VERSION:
+            by = meta.get("created_by") or "a newer warmstart"
             raise BadInputError(
-                f"history {self.path} has format version {version}, newer than this "
-                f"warmstart ({__version__}) reads (up to {FORMAT_VERSION}); upgrade warmstart"
+                f"history {self.path} has format version {version} (written by {by}); this "
+                f"warmstart {__version__} reads format versions up to {FORMAT_VERSION}: "
+                f"upgrade to a warmstart that reads format {version}"
+            )
+        if version < FORMAT_VERSION:
+            raise BadInputError(
+                f"history {self.path} has the old format version {version}; convert it with "
+                f"'warmstart kb migrate --kb {self.path}' (the data is kept)"
             )
         self.format_version = version
+        self.created_by = str(meta.get("created_by", ""))
 
     # -- creation -----------------------------------------------------------------
     @classmethod
@@ -173,20 +220,47 @@ class KnowledgeBase:
     def _raw(self, table: str) -> pa.Table:
         return read_dir(self.path / table, SCHEMAS[table])
 
-    def tables(self) -> dict[str, pd.DataFrame]:
-        """The visible rows of all three tables, de-duplicated by key.
+    def arrow_tables(self, family: str | None = None, task: str | None = None,
+                     trial_columns: list[str] | None = None) -> dict[str, pa.Table]:
+        """The visible rows of the three tables as Arrow tables, sorted and de-duplicated.
 
-        Visible means committed: a study whose study row exists, its trials, and the
-        datasets some visible study refers to.
+        Visible means committed: the studies (optionally only those of ``family`` and
+        ``task``), the trials of those studies, and the dataset rows they refer to;
+        trial and dataset rows count only from files of committed studies, so nothing a
+        killed or still-running writer left is ever seen. Only the needed files and rows
+        are read (Parquet filters), which keeps a question about one family fast on a
+        large history.
         """
-        studies = self._raw("studies").to_pandas().drop_duplicates(KEYS["studies"])
-        trials = self._raw("trials").to_pandas()
-        trials = trials[trials["study_id"].isin(studies["study_id"])]
-        trials = trials.drop_duplicates(KEYS["trials"]).reset_index(drop=True)
-        datasets = self._raw("datasets").to_pandas().drop_duplicates(KEYS["datasets"])
-        datasets = datasets[datasets["dataset_id"].isin(studies["dataset_id"])]
-        return {"datasets": datasets.reset_index(drop=True),
-                "studies": studies.reset_index(drop=True), "trials": trials}
+        cond = None
+        for col, value in (("family", family), ("task", task)):
+            if value is not None:
+                term = pads.field(col) == value
+                cond = term if cond is None else cond & term
+        studies = dedupe(read_dir(self.path / "studies", SCHEMAS["studies"], filter=cond),
+                         "studies")
+        ids = set(studies.column("study_id").to_pylist())
+
+        def committed(files: list[Path]) -> list[Path]:
+            return [f for f in files if (p := parse_log_name(f)) is None or p[0] in ids]
+
+        id_list = pa.array(sorted(ids), pa.string())
+        trials = read_dir(self.path / "trials", SCHEMAS["trials"], columns=trial_columns,
+                          filter=pads.field("study_id").isin(id_list), select=committed)
+        trials = dedupe(trials, "trials") if trial_columns is None else trials
+        ds_ids = pa.array(sorted(set(studies.column("dataset_id").to_pylist())), pa.string())
+        datasets = read_dir(self.path / "datasets", SCHEMAS["datasets"],
+                            filter=pads.field("dataset_id").isin(ds_ids), select=committed)
+        return {"datasets": dedupe(datasets, "datasets"), "studies": studies,
+                "trials": trials}
+
+    def tables(self, family: str | None = None, task: str | None = None
+               ) -> dict[str, pd.DataFrame]:
+        """The visible rows of all three tables as DataFrames (see :meth:`arrow_tables`).
+
+        Rows are de-duplicated by key and sorted by it, so the result does not depend on
+        how the rows are spread over files.
+        """
+        return {k: v.to_pandas() for k, v in self.arrow_tables(family, task).items()}
 
     def fingerprints(self, datasets: pd.DataFrame | None = None) -> dict[str, Fingerprint]:
         """Stored fingerprints by dataset id."""
@@ -244,6 +318,10 @@ class KnowledgeBase:
             fp = fingerprint(load_frame(data), target=target, task=task)
         metric_obj = resolve_metric(metric or DEFAULT_METRIC[fp.task], direction)
         checked = validate_trials(trials, fam.space(fp.task), metric_obj)
+        if not re.fullmatch(r"[0-9a-f]{64}", fp.dataset_hash):
+            raise BadInputError("the fingerprint's dataset_hash is not 64 hex digits")
+        if not isinstance(source, str) or not source:
+            raise BadInputError("source must be a non-empty string")
         self._check_writable()
 
         label = name or (Path(data).stem if isinstance(data, (str, os.PathLike)) else
@@ -251,8 +329,7 @@ class KnowledgeBase:
         dataset_id = fp.dataset_hash[:16]
         study_id = uuid.uuid4().hex
         now = datetime.now(timezone.utc)
-        existing = self.tables()
-        is_new = dataset_id not in set(existing["datasets"]["dataset_id"])
+        is_new = not self._dataset_known(dataset_id)
 
         trial_table = pa.Table.from_pylist([
             {"study_id": study_id, "trial_index": i, "config": config_key(t.config),
@@ -265,17 +342,25 @@ class KnowledgeBase:
             "label": label, "n_trials": len(checked), "source": source,
             "tool_version": __version__, "created_at": now,
         }], schema=SCHEMAS["studies"])
+        # The dataset row is written by every study, even when the dataset is known: a
+        # study then never depends on another study's files, and duplicates cost one
+        # small row (readers keep the earliest; compaction drops the rest).
+        dataset_table = pa.Table.from_pylist([{
+            "dataset_id": dataset_id, "name": label, "task": fp.task, "target": fp.target,
+            "catalogue_version": fp.catalogue_version,
+            "meta_features": json.dumps(fp.to_dict()["meta_features"], sort_keys=True),
+            "warnings": json.dumps(fp.warnings), "created_at": now,
+        }], schema=SCHEMAS["datasets"])
         # Dataset first, trials next, the study row last: the study file commits.
-        if is_new:
-            dataset_table = pa.Table.from_pylist([{
-                "dataset_id": dataset_id, "name": label, "task": fp.task, "target": fp.target,
-                "catalogue_version": fp.catalogue_version,
-                "meta_features": json.dumps(fp.to_dict()["meta_features"], sort_keys=True),
-                "warnings": json.dumps(fp.warnings), "created_at": now,
-            }], schema=SCHEMAS["datasets"])
-            write_atomic(dataset_table, self.path / "datasets", f"{study_id}.parquet")
-        write_atomic(trial_table, self.path / "trials", f"{study_id}.parquet")
-        write_atomic(study_table, self.path / "studies", f"{study_id}.parquet")
+        fname = log_name(study_id, dataset_id)
+        try:
+            write_atomic(dataset_table, self.path / "datasets", fname)
+            _pause("after-dataset")
+            write_atomic(trial_table, self.path / "trials", fname)
+            _pause("after-trials")
+            write_atomic(study_table, self.path / "studies", fname)
+        except PermissionError:
+            raise BadInputError(f"history {self.path} is read-only (permission denied)") from None
 
         scores = [t.score for t in checked if t.status == OK]
         best = None
@@ -283,6 +368,21 @@ class KnowledgeBase:
             best = max(scores) if metric_obj.direction == MAXIMIZE else min(scores)
         return LoggedStudy(study_id, dataset_id, is_new, fam.name, fp.task, metric_obj.name,
                            metric_obj.direction, label, len(checked), len(scores), best)
+
+    def _dataset_known(self, dataset_id: str) -> bool:
+        """Whether a committed study already refers to ``dataset_id``.
+
+        Files written by ``log`` carry the dataset id in their name, so only the few
+        merged/imported study files need reading.
+        """
+        studies_dir = self.path / "studies"
+        if any(p is not None and p[1] == dataset_id
+               for p in map(parse_log_name, visible_files(studies_dir))):
+            return True
+        found = read_dir(studies_dir, SCHEMAS["studies"], columns=["dataset_id"],
+                         filter=pads.field("dataset_id") == dataset_id,
+                         select=lambda fs: [f for f in fs if parse_log_name(f) is None])
+        return found.num_rows > 0
 
     def _check_writable(self) -> None:
         for table in SCHEMAS:
@@ -358,7 +458,7 @@ class KnowledgeBase:
         fam = get_family(family)
         strat = get_strategy(strategy or DEFAULT_STRATEGY)
         query = self._query(data, target, task, fingerprint_of)
-        t = self.tables()
+        t = self.tables(family=fam.name, task=query.task)  # reads only this family's rows
         studies = t["studies"]
         studies = studies[(studies["family"] == fam.name) & (studies["task"] == query.task)]
         if studies.empty:
@@ -425,6 +525,44 @@ class KnowledgeBase:
             "by_family": per,
             "fingerprints_by_catalogue_version": {int(k): int(v) for k, v in versions.items()},
         }
+
+    # -- maintenance (implemented in warmstart.maintenance) ---------------------------
+    def check(self, repair: bool = False, grace_seconds: float | None = None):
+        """Verify the history's integrity; with ``repair``, remove leftovers of killed
+        writers and set unreadable files aside. Returns a
+        :class:`~warmstart.maintenance.CheckReport` (``.ok`` is False on any problem).
+        See :func:`warmstart.maintenance.check`."""
+        from warmstart import maintenance
+
+        return maintenance.check(self, repair=repair, grace_seconds=grace_seconds)
+
+    def compact(self) -> dict[str, Any]:
+        """Merge each table's files into one, beside live readers and writers.
+        See :func:`warmstart.maintenance.compact`."""
+        from warmstart import maintenance
+
+        return maintenance.compact(self)
+
+    def export(self, file: str | os.PathLike) -> dict[str, Any]:
+        """Write the visible history to one portable file.
+        See :func:`warmstart.maintenance.export`."""
+        from warmstart import maintenance
+
+        return maintenance.export(self, file)
+
+    def import_(self, file: str | os.PathLike) -> dict[str, Any]:
+        """Merge an exported history (``import`` is a Python keyword, hence the ``_``).
+        See :func:`warmstart.maintenance.import_`."""
+        from warmstart import maintenance
+
+        return maintenance.import_(self, file)
+
+    @staticmethod
+    def migrate(path: str | os.PathLike | None = None) -> dict[str, Any]:
+        """Convert an older-format history in place. See :func:`warmstart.maintenance.migrate`."""
+        from warmstart import maintenance
+
+        return maintenance.migrate(resolve_path(path))
 
 
 __all__ = ["DEFAULT_PATH", "ENV_VAR", "FORMAT_VERSION", "KnowledgeBase", "LoggedStudy",
