@@ -54,7 +54,7 @@ def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, s
         if not no_log:
             raise
         kb = None  # --no-log works without a history: a cold start
-    bar = ProgressBar(budget, stream=click.get_text_stream("stderr"), enabled=progress)
+    bar = ProgressBar(budget, stream=sys.stderr, enabled=progress)
     try:
         result = tune(data, target=target, family=family, budget=budget, metric=metric, cv=cv,
                       seed=seed, jobs=jobs, time_limit=time_limit, search=search, kb=kb,

@@ -26,6 +26,7 @@ from scipy.stats import norm
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
+from threadpoolctl import threadpool_limits
 
 from warmstart.spaces import BOOL, CATEGORICAL, Param, SearchSpace, config_key
 
@@ -176,7 +177,9 @@ class BayesianOptimizer:
         if not candidates:
             return self._fresh(rng, seen)
         gp = make_surrogate(X.shape[1], self.seed)
-        with warnings.catch_warnings():
+        # One BLAS thread: these matrices are tiny, and thread start-up and contention
+        # on a shared machine cost far more than they save.
+        with threadpool_limits(1), warnings.catch_warnings():
             warnings.simplefilter("ignore", ConvergenceWarning)
             gp.fit(X, y)
             mu, sigma = gp.predict(self.space.encode(candidates), return_std=True)
