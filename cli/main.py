@@ -114,33 +114,35 @@ def families_cmd(as_json: bool) -> None:
 @json_option
 @handle_errors
 def fingerprint_cmd(data, target, task, list_catalogue, as_json) -> None:
-    """Compute a dataset's meta-feature fingerprint."""
+    """Compute a dataset's meta-feature fingerprint (warnings about dirty columns on stderr)."""
     if list_catalogue:
         cat = warmstart.catalogue()
         if as_json:
             emit_json(cat)
             return
         for group, title in GROUPS.items():
-            rows = [[m["name"], m["tasks"], m["range"], m["description"]]
+            rows = [[m["name"], m["tasks"], m["range"], m["basis"], m["description"]]
                     for m in cat if m["group"] == group]
             if rows:
                 click.echo(f"{title} [{group}]")
-                click.echo(table(rows, ["meta-feature", "tasks", "range", "description"],
-                                 align="llll"))
+                click.echo(table(rows, ["meta-feature", "tasks", "range", "basis",
+                                        "description"], align="lllll"))
                 click.echo()
-        click.echo(f"{len(cat)} meta-features, catalogue version {CATALOGUE_VERSION}")
+        click.echo(f"{len(cat)} meta-features in {len(GROUPS)} groups, catalogue version "
+                   f"{CATALOGUE_VERSION}; basis: exact = every row, sketch = exact up to "
+                   "4096 levels, sample = seeded sample of 5000 rows")
         return
     need_data(data, target, None)
     fp = warmstart.fingerprint(data, target=target, task=task)
     if as_json:
         emit_json(fp.to_dict())
-        return
-    click.echo(f"{data}: {fp.task}, target {fp.target!r}, catalogue version "
-               f"{fp.catalogue_version}")
-    for group, values in fp.grouped().items():
-        click.echo(f"\n{GROUPS[group]} [{group}]")
-        rows = [[name, value] for name, value in values.items()]
-        click.echo(table(rows, ["meta-feature", "value"], align="lr"))
+    else:
+        click.echo(f"{data}: {fp.task}, target {fp.target!r}, catalogue version "
+                   f"{fp.catalogue_version}")
+        for group, values in fp.grouped().items():
+            click.echo(f"\n{GROUPS[group]} [{group}]")
+            rows = [[name, value] for name, value in values.items()]
+            click.echo(table(rows, ["meta-feature", "value"], align="lr"))
     for w in fp.warnings:
         click.echo(f"warning: {w}", err=True)
 
