@@ -156,3 +156,16 @@ def test_bad_input(kwargs, match):
     args = {"target": "target", "family": "knn", "budget": 2, **kwargs}
     with pytest.raises(BadInputError, match=match):
         tune(iris(), **args)
+
+
+def test_space_file_narrows_every_trial(tmp_path):
+    spec = tmp_path / "space.json"
+    spec.write_text(json.dumps([{"name": "n_neighbors", "low": 3, "high": 9},
+                                {"name": "weights", "choices": ["distance"]}]))
+    result = tune(iris(), target="target", family="knn", budget=5, cv=2, space=spec,
+                  search="random")
+    # the declared default weights="uniform" is excluded: the cold first trial takes the
+    # first allowed choice instead
+    assert result.trials[0].config == {"n_neighbors": 5, "weights": "distance", "p": 2}
+    for t in result.trials:
+        assert 3 <= t.config["n_neighbors"] <= 9 and t.config["weights"] == "distance"

@@ -43,8 +43,9 @@ from warmstart.fingerprint import fingerprint, load_frame
 from warmstart.history import KnowledgeBase, LoggedStudy
 from warmstart.metrics import DEFAULT_METRIC, resolve_metric
 from warmstart.pipelines import make_pipeline
-from warmstart.spaces import config_key
+from warmstart.spaces import SearchSpace, config_key
 from warmstart.storage import write_bytes_atomic
+from warmstart.strategies.base import user_space
 from warmstart.trials import FAILED, OK
 
 SEARCHES = ("bayes", "random")
@@ -191,6 +192,7 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
          kb: KnowledgeBase | str | os.PathLike | None = None, log: bool = True,
          task: str | None = None, out: str | os.PathLike | None = None,
          name: str | None = None, warm_start: int | None = None,
+         space: SearchSpace | str | os.PathLike | list | None = None,
          progress: Callable[[TuneTrial], None] | None = None) -> TuneResult:
     """Run a warm-started tuning study of ``family`` on ``data`` and log it.
 
@@ -234,6 +236,9 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         Suggestions to evaluate first; default ``min(5, max(1, budget // 2))``. A study
         that gets no suggestion (no history, no study of the family, ``warm_start=0``)
         evaluates the family's declared defaults first.
+    space : SearchSpace, JSON list or path of a JSON file, optional
+        Restrict the search to part of the family's space (see
+        :meth:`SearchSpace.from_dict`); suggestions are clipped into it.
     progress : callable, optional
         Called with each finished :class:`TuneTrial` (e.g. a :class:`ProgressBar`).
 
@@ -270,7 +275,7 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         raise BadInputError(f"metric {metric_name!r} is not a scikit-learn scorer name "
                             "(tune computes the score itself)")
     metric_obj = resolve_metric(metric_name)
-    space = fam.space(task)
+    space = fam.space(task) if space is None else user_space(space, fam, task)
     notes: list[str] = []
 
     labelled = df[df[target].notna()]
@@ -301,7 +306,7 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
     elif n_warm > 0:
         try:
             found = kb.suggest(fingerprint_of=fp, family=fam.name, k=n_warm,
-                               metric=metric_name, seed=seed)
+                               metric=metric_name, seed=seed, space=space)
             queue = [space.validate(s.config) for s in found]
             notes.append(f"warm start: {len(queue)} configurations from the history's "
                          f"nearest datasets")
@@ -309,7 +314,7 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
             notes.append(f"starting cold: {exc}")
     if not queue:
         # A cold study starts where a user without a history would: the defaults.
-        queue = [space.validate(space.defaults())]
+        queue = [_defaults_within(space)]
         queue_origin = DEFAULTS
 
     result = TuneResult(fam.name, task, metric_obj.name, str(target), len(y), cv, seed,
@@ -379,6 +384,16 @@ def _evaluate(fam, task, config, X, y, folds, scoring, seed, jobs, train_rows, i
         error = f"{type(exc).__name__}: {text[0] if text else ''}".strip()
         return TuneTrial(index, config, origin, FAILED, None, [], None,
                          time.monotonic() - t0, error[:500])
+
+
+def _defaults_within(space: SearchSpace) -> dict[str, Any]:
+    """The declared defaults brought inside a (possibly narrowed) space: numbers clipped
+    to its bounds, a categorical default it excludes replaced by its first choice."""
+    config = space.defaults()
+    for p in space:
+        if p.name in config and p.choices and p.problem(config[p.name]) is not None:
+            config[p.name] = p.choices[0]
+    return space.validate(space.clip(config))
 
 
 def _check_int(what: str, value: Any, low: int) -> None:
