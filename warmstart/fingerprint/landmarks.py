@@ -95,7 +95,8 @@ def _linear(task):
     from sklearn.linear_model import LogisticRegression, Ridge
 
     if task == CLASSIFICATION:
-        return LogisticRegression(C=1.0, max_iter=200)
+        # Newton-Cholesky: a few exact steps, much faster than L-BFGS on small designs.
+        return LogisticRegression(C=1.0, solver="newton-cholesky", max_iter=100)
     return Ridge(alpha=1.0)
 
 
@@ -120,7 +121,7 @@ def landmark_naive_bayes(p: DatasetProfile) -> float:
 
 
 @meta_feature("landmark_linear", LANDMARKS, "Score of a regularised linear model",
-              f"logistic regression (C=1) or ridge regression (alpha=1); {_SCORE}",
+              f"logistic regression (C=1, multinomial) or ridge regression (alpha=1); {_SCORE}",
               "[0, 1] or (-inf, 1]", BOTH, basis="sample")
 def landmark_linear(p: DatasetProfile) -> float:
     return out_of_fold_score(p, _linear)
