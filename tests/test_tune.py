@@ -169,3 +169,12 @@ def test_space_file_narrows_every_trial(tmp_path):
     assert result.trials[0].config == {"n_neighbors": 5, "weights": "distance", "p": 2}
     for t in result.trials:
         assert 3 <= t.config["n_neighbors"] <= 9 and t.config["weights"] == "distance"
+
+
+def test_plain_random_search_skips_the_defaults():
+    a = tune(iris(), target="target", family="knn", budget=3, cv=2, search="random",
+             defaults_first=False, seed=1)
+    b = tune(iris(), target="target", family="knn", budget=4, cv=2, search="random", seed=1)
+    assert [t.origin for t in a.trials] == ["random"] * 3
+    assert b.trials[0].origin == "defaults"
+    assert [t.config for t in b.trials[1:]] == [t.config for t in a.trials]

@@ -193,6 +193,7 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
          task: str | None = None, out: str | os.PathLike | None = None,
          name: str | None = None, warm_start: int | None = None,
          space: SearchSpace | str | os.PathLike | list | None = None,
+         defaults_first: bool = True,
          progress: Callable[[TuneTrial], None] | None = None) -> TuneResult:
     """Run a warm-started tuning study of ``family`` on ``data`` and log it.
 
@@ -235,10 +236,13 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
     warm_start : int, optional
         Suggestions to evaluate first; default ``min(5, max(1, budget // 2))``. A study
         that gets no suggestion (no history, no study of the family, ``warm_start=0``)
-        evaluates the family's declared defaults first.
+        evaluates the family's declared defaults first (see ``defaults_first``).
     space : SearchSpace, JSON list or path of a JSON file, optional
         Restrict the search to part of the family's space (see
         :meth:`SearchSpace.from_dict`); suggestions are clipped into it.
+    defaults_first : bool
+        Whether a study without suggestions evaluates the defaults first (True), or
+        starts straight with its search (plain random search, as a baseline).
     progress : callable, optional
         Called with each finished :class:`TuneTrial` (e.g. a :class:`ProgressBar`).
 
@@ -312,7 +316,7 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
                          f"nearest datasets")
         except NothingToSuggestError as exc:
             notes.append(f"starting cold: {exc}")
-    if not queue:
+    if not queue and defaults_first:
         # A cold study starts where a user without a history would: the defaults.
         queue = [_defaults_within(space)]
         queue_origin = DEFAULTS
