@@ -1,8 +1,10 @@
 """The model families warmstart knows, declared once here.
 
 Adding a family: write one module in this package that defines ``FAMILY`` (a
-:class:`~warmstart.families.base.Family`), add it to ``_MODULES`` below, and add it to
-the parametrised tests in ``tests/test_families.py``.
+:class:`~warmstart.families.base.Family`) and add its name to ``_MODULES`` below. The
+tests in ``tests/test_families.py`` are parametrised over ``FAMILIES`` and pick it up:
+its parameter names against the estimator's keywords, its defaults and samples, and its
+pipeline fitted on real data for both tasks.
 """
 
 from __future__ import annotations
