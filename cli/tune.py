@@ -33,6 +33,8 @@ EXIT_INTERRUPTED = 130  # 128 + SIGINT, what shells report for Ctrl-C
               help="What proposes trials after the warm start.")
 @click.option("--warm-start", "warm_start", type=int, default=None,
               help="Suggestions to evaluate first [default: min(5, budget // 2)].")
+@click.option("--strategy", "-s", default=None,
+              help="Ranking strategy of the warm-start suggestions (see 'suggest').")
 @click.option("--space", "space_file", type=click.Path(path_type=Path), default=None,
               help="JSON search-space file narrowing the family's space.")
 @click.option("--no-log", "no_log", is_flag=True, help="Do not log the study.")
@@ -47,7 +49,7 @@ EXIT_INTERRUPTED = 130  # 128 + SIGINT, what shells report for Ctrl-C
 @json_option
 @handle_errors
 def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, search,
-             warm_start, space_file, no_log, out, name, task, progress, kb_path,
+             warm_start, strategy, space_file, no_log, out, name, task, progress, kb_path,
              as_json) -> None:
     """Tune FAMILY on DATA: warm-start suggestions first, then Bayesian optimisation."""
     path = resolve_path(kb_path)
@@ -62,7 +64,7 @@ def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, s
         result = tune(data, target=target, family=family, budget=budget, metric=metric, cv=cv,
                       seed=seed, jobs=jobs, time_limit=time_limit, search=search, kb=kb,
                       log=not no_log, task=task, out=out, name=name, warm_start=warm_start,
-                      space=space_file,
+                      space=space_file, strategy=strategy,
                       progress=bar)
     finally:
         bar.close()

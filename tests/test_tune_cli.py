@@ -77,7 +77,8 @@ def test_progress_bar_can_be_forced_on(iris_csv):
 
 def test_bad_input_exits_2_and_writes_nothing(kb, iris_csv):
     before = dir_digest(kb.path)
-    for args in (["-n", 0], ["-n", 2, "--cv", 1], ["-n", 2, "--metric", "nonsense"]):
+    for args in (["-n", 0], ["-n", 2, "--cv", 1], ["-n", 2, "--metric", "nonsense"],
+                 ["-n", 2, "--strategy", "nonsense"]):
         r = run("tune", iris_csv, "-t", "target", "-f", "knn", *args, "--kb", kb.path)
         assert r.exit_code == 2 and r.stderr.startswith("error: "), r.output
     r = run("tune", iris_csv, "-t", "target", "-f", "knn", "-n", 2, "--kb", "not-a-history")

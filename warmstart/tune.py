@@ -193,7 +193,7 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
          task: str | None = None, out: str | os.PathLike | None = None,
          name: str | None = None, warm_start: int | None = None,
          space: SearchSpace | str | os.PathLike | list | None = None,
-         defaults_first: bool = True,
+         defaults_first: bool = True, strategy: str | None = None,
          progress: Callable[[TuneTrial], None] | None = None) -> TuneResult:
     """Run a warm-started tuning study of ``family`` on ``data`` and log it.
 
@@ -243,6 +243,9 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
     defaults_first : bool
         Whether a study without suggestions evaluates the defaults first (True), or
         starts straight with its search (plain random search, as a baseline).
+    strategy : str, optional
+        The history's ranking strategy for the suggestions (see
+        :data:`warmstart.strategies.STRATEGIES`); the history's default otherwise.
     progress : callable, optional
         Called with each finished :class:`TuneTrial` (e.g. a :class:`ProgressBar`).
 
@@ -310,7 +313,8 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
     elif n_warm > 0:
         try:
             found = kb.suggest(fingerprint_of=fp, family=fam.name, k=n_warm,
-                               metric=metric_name, seed=seed, space=space)
+                               metric=metric_name, seed=seed, space=space,
+                               strategy=strategy)
             queue = [space.validate(s.config) for s in found]
             notes.append(f"warm start: {len(queue)} configurations from the history's "
                          f"nearest datasets")
