@@ -74,8 +74,8 @@ def iqr(values) -> tuple[float, float, float]:
 def main(argv=None) -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--family", default="hist_gradient_boosting")
-    ap.add_argument("--datasets", type=int, default=30, help="how many datasets")
-    ap.add_argument("--rows", type=int, default=400, help="row cap per dataset")
+    ap.add_argument("--datasets", type=int, default=20, help="how many datasets")
+    ap.add_argument("--rows", type=int, default=300, help="row cap per dataset")
     ap.add_argument("--budget", type=int, default=20)
     ap.add_argument("--reference", type=int, default=20,
                     help="random-search trials that set the target score")
