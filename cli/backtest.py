@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 
 import click
@@ -53,7 +54,7 @@ def backtest_cmd(family, ks, strategies, metric, random_repeats, seed, plot_file
     def progress(done: int, total: int) -> None:
         if "bar" not in bar_holder:
             bar_holder["bar"] = click.progressbar(length=total, label="held-out datasets",
-                                                  file=click.get_text_stream("stderr"))
+                                                  file=sys.stderr)
             bar_holder["bar"].__enter__()
         bar_holder["bar"].update(1)
         if done == total:

@@ -168,6 +168,8 @@ def backtest_tables(tables: dict[str, pd.DataFrame], fingerprints: dict[str, Fin
                     holdout: set[str] | None = None,
                     candidates: dict[str, list[dict]] | None = None,
                     history_trials: dict[str, pd.DataFrame] | None = None,
+                    normalisation: str = "minmax",
+                    surrogate_cache: dict | None = None,
                     progress: Callable[[int, int], None] | None = None) -> BacktestResult:
     """The backtest on in-memory tables (what :func:`backtest` runs).
 
@@ -184,6 +186,11 @@ def backtest_tables(tables: dict[str, pd.DataFrame], fingerprints: dict[str, Fin
         ``tables["trials"]`` stays the held-out truth.
     space : SearchSpace or dict, optional
         One space for all tasks, or task -> space.
+    normalisation : {"minmax", "rank"}
+        How history scores are normalised per study (see
+        :func:`warmstart.strategies.normalise_scores`).
+    surrogate_cache : dict, optional
+        Reused across calls with the same history and normalisation.
     """
     fam = get_family(family)
     ks = tuple(sorted({int(k) for k in ks}))
@@ -220,15 +227,16 @@ def backtest_tables(tables: dict[str, pd.DataFrame], fingerprints: dict[str, Fin
     jobs = []
     for task, st in plan:
         truth = prepare_trials(tables["trials"], st)
-        hist = (prepare_trials(history_trials[task], st) if history_trials
-                and task in history_trials else truth)
+        hist = prepare_trials(history_trials[task] if history_trials and task in
+                              history_trials else tables["trials"], st, normalisation)
+        hist["key"] = [canonical_key(fam.space(task), c) for c in hist["config"]]
         ids = sorted(st["dataset_id"].unique())
         group = {i: (groups or {}).get(i, i) for i in ids}
         excluded = _exclusions(ids, group, seed)
         for h in ids:
             if holdout is None or h in holdout:
                 jobs.append((task, st, truth, hist, h, excluded[h]))
-    surrogate_cache: dict = {}
+    surrogate_cache = {} if surrogate_cache is None else surrogate_cache
     for n_done, (task, st, truth, hist, h, excl) in enumerate(jobs, 1):
         task_space = space.get(task) if isinstance(space, dict) else space
         outcome = _one_holdout(fam, task, st, truth, hist, h, excl, fingerprints, names_of,
@@ -277,8 +285,14 @@ def _one_holdout(fam, task, st, truth, hist, h, excl, fingerprints, names_of, ro
     keys = [canonical_key(full, c) for c in own["config"]]
     observed = pd.Series(oriented).groupby(pd.Series(keys)).mean().to_dict()
     lo = float(oriented.min())
-    held_surrogate = fit_surrogate(list(own["config"]), (oriented - lo) / (best - lo), full,
-                                   "forest", seed)
+    held: list = []  # the held-out study's surrogate, fitted on first need
+
+    def predicted_value(config) -> float:
+        if not held:
+            held.append(fit_surrogate(list(own["config"]), (oriented - lo) / (best - lo),
+                                      full, "forest", seed))
+        return lo + float(held[0].predict([config])[0]) * (best - lo)
+
     hist_studies = st[~st["dataset_id"].isin(excl)].reset_index(drop=True)
     hist_trials = hist[hist["study_id"].isin(hist_studies["study_id"])].reset_index(drop=True)
     hist_ids = set(hist_studies["dataset_id"])
@@ -304,8 +318,7 @@ def _one_holdout(fam, task, st, truth, hist, h, excl, fingerprints, names_of, ro
                     values.append(observed[key])
                 else:
                     n_pred += 1
-                    values.append(lo + float(held_surrogate.predict([p.config])[0])
-                                  * (best - lo))
+                    values.append(predicted_value(p.config))
             curves.append(_regret_curve(np.asarray(values), best, median, ks))
         ctx.seed = seed
         out.append((s.name, np.nanmean(np.array(curves), axis=0) if curves else

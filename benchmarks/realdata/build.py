@@ -11,7 +11,7 @@ same numbers as refitting the whole pipeline, much faster).
 Resumable: each (family, dataset) result is cached as one JSON file under ``cache/``
 (written atomically); a rerun skips what is cached. ``results/`` gets the consolidated,
 committed files: ``datasets.json`` (name, group, task, target, shape, fingerprint) and
-``scores.csv`` (family, dataset, config_index, config, score, fit_seconds, status).
+``scores.parquet`` (family, dataset, config_index, config, score, fit_seconds, status).
 
 Run: ``nice -n 10 python -m benchmarks.realdata.build [--jobs 2]``.
 """
@@ -163,7 +163,7 @@ def fingerprints(datasets) -> list[dict]:
 
 
 def consolidate(datasets, families=FAMILIES) -> None:
-    """Write results/datasets.json and results/scores.csv from the cache."""
+    """Write results/datasets.json and results/scores.parquet from the cache."""
     RESULTS.mkdir(exist_ok=True)
     _atomic_json(fingerprints(datasets), RESULTS / "datasets.json")
     rows = []
@@ -180,9 +180,9 @@ def consolidate(datasets, families=FAMILIES) -> None:
                              "score": r["score"], "fit_seconds": r["fit_seconds"],
                              "status": r["status"]})
     df = pd.DataFrame(rows)
-    tmp = RESULTS / "scores.csv.tmp"
-    df.to_csv(tmp, index=False, float_format="%.6g")
-    os.replace(tmp, RESULTS / "scores.csv")
+    tmp = RESULTS / "scores.parquet.tmp"
+    df.to_parquet(tmp, index=False)
+    os.replace(tmp, RESULTS / "scores.parquet")
 
 
 def build(jobs: int = 2, families=FAMILIES, limit: int | None = None) -> float:

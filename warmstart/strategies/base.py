@@ -29,21 +29,32 @@ from warmstart.metrics import MINIMIZE
 from warmstart.similarity import Neighbour
 from warmstart.spaces import SearchSpace, config_key
 
+NORMALISATIONS = ("minmax", "rank")
 
-def normalise_scores(scores: np.ndarray, direction: str) -> np.ndarray:
-    """Min-max normalise one study's scores to [0, 1], 1 = best.
+
+def normalise_scores(scores: np.ndarray, direction: str, method: str = "minmax") -> np.ndarray:
+    """Normalise one study's scores to [0, 1], 1 = best.
 
     Parameters
     ----------
     scores : ndarray of shape (n_trials,), finite
     direction : {"maximize", "minimize"}
+    method : {"minmax", "rank"}
+        ``"minmax"``: ``(s - min) / (max - min)``; ``"rank"``: ``(rank - 1) / (n - 1)``
+        with average ranks for ties (1 = best trial), which ignores the size of gaps.
     """
     s = np.asarray(scores, dtype=float)
     if direction == MINIMIZE:
         s = -s
+    if method not in NORMALISATIONS:
+        raise BadInputError(f"unknown normalisation {method!r}")
     lo, hi = s.min(), s.max()
     if hi == lo:
         return np.ones_like(s)
+    if method == "rank":
+        from scipy.stats import rankdata
+
+        return (rankdata(s) - 1.0) / (s.size - 1.0)
     return (s - lo) / (hi - lo)
 
 
@@ -158,6 +169,26 @@ class SuggestContext:
                 self.seed)
         return self.surrogates[cache_key]
 
+    def trial_keys(self) -> np.ndarray:
+        """Canonical keys of :attr:`trials`' configurations, shape (n_trials,) (cached;
+        a ``key`` column in ``trials`` is used as is)."""
+        if "key" in self.trials.columns:
+            return self.trials["key"].to_numpy()
+        if "_trial_keys" not in self.extra:
+            self.extra["_trial_keys"] = np.array([self.key(c) for c in self.trials["config"]],
+                                                 dtype=object)
+        return self.extra["_trial_keys"]
+
+    def predict(self, study_id: str, kind: str, configs: list[dict[str, Any]],
+                keys: list[str]) -> np.ndarray:
+        """Surrogate predictions for one study, shape (len(configs),), cached by key."""
+        cached = self.surrogates.setdefault(("predictions", study_id, kind), {})
+        todo = [i for i, key in enumerate(keys) if key not in cached]
+        if todo:
+            pred = self.surrogate(study_id, kind).predict([configs[i] for i in todo])
+            cached.update({keys[i]: float(v) for i, v in zip(todo, pred)})
+        return np.array([cached[key] for key in keys], dtype=float)
+
     def exact_match(self) -> Neighbour | None:
         """The nearest neighbour when it is at distance 0 (the same dataset), else None."""
         if self.neighbours and self.neighbours[0].distance == 0:
@@ -244,7 +275,8 @@ class Strategy(Protocol):
     def propose(self, ctx: SuggestContext, k: int) -> list[Suggestion]: ...
 
 
-def prepare_trials(trials: pd.DataFrame, studies: pd.DataFrame) -> pd.DataFrame:
+def prepare_trials(trials: pd.DataFrame, studies: pd.DataFrame,
+                   normalisation: str = "minmax") -> pd.DataFrame:
     """Keep ``ok`` trials of ``studies``, parse configs, add per-study normalised scores."""
     t = trials[(trials["status"] == "ok") & trials["study_id"].isin(studies["study_id"])]
     t = t.dropna(subset=["score"]).copy()
@@ -253,5 +285,5 @@ def prepare_trials(trials: pd.DataFrame, studies: pd.DataFrame) -> pd.DataFrame:
     t["normalised"] = np.nan
     for sid, idx in t.groupby("study_id").groups.items():
         t.loc[idx, "normalised"] = normalise_scores(t.loc[idx, "score"].to_numpy(),
-                                                    direction[sid])
+                                                    direction[sid], normalisation)
     return t.reset_index(drop=True)

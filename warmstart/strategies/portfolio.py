@@ -38,7 +38,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-import pandas as pd
 
 from warmstart.strategies.base import SuggestContext, Suggestion
 
@@ -139,9 +138,9 @@ class GreedyPortfolio:
         units, w = self._sources(ctx)
         if not units:
             return []
-        trials = ctx.trials.assign(key=[ctx.key(c) for c in ctx.trials["config"]])
         unit_ids = [sid for _, sid in units]
-        src = trials[trials["study_id"].isin(unit_ids)]
+        mask = ctx.trials["study_id"].isin(unit_ids).to_numpy()
+        src = ctx.trials[mask].assign(key=ctx.trial_keys()[mask])
         # candidates: canonical key -> configuration inside the (user) space
         cands: dict[str, dict] = {}
         pool = ctx.candidates if ctx.candidates is not None else list(src["config"])
@@ -154,27 +153,25 @@ class GreedyPortfolio:
         keys = sorted(cands)
         configs = [cands[key] for key in keys]
         row_of = {key: i for i, key in enumerate(keys)}
-        P = np.zeros((len(keys), len(units)))
-        seen = np.zeros_like(P, dtype=bool)
+        col_of = {sid: j for j, sid in enumerate(unit_ids)}
+        P = np.full((len(keys), len(units)), np.nan)
+        obs = src.groupby(["study_id", "key"])["normalised"].mean()
+        for (sid, key), v in obs.items():
+            if key in row_of:
+                P[row_of[key], col_of[sid]] = v
+        seen = np.isfinite(P)
         for j, sid in enumerate(unit_ids):
-            t = src[src["study_id"] == sid]
-            obs = t.groupby("key")["normalised"].mean()
-            idx = [row_of[key] for key in obs.index if key in row_of]
-            vals = [v for key, v in obs.items() if key in row_of]
-            missing = np.setdiff1d(np.arange(len(keys)), idx)
+            missing = np.flatnonzero(~seen[:, j])
             if missing.size:
-                pred = ctx.surrogate(sid, self.surrogate).predict(
-                    [configs[i] for i in missing])
-                P[missing, j] = pred
-            P[idx, j] = vals
-            seen[idx, j] = True
-        first = self._first(ctx, trials, row_of)
+                P[missing, j] = ctx.predict(sid, self.surrogate,
+                                            [configs[i] for i in missing],
+                                            [keys[i] for i in missing])
+        first = self._first(ctx, row_of)
         order = greedy_order(P, w, k, first)
         return [self._suggestion(ctx, src, units, w, P, seen, configs[i], keys[i], i, r)
                 for r, i in enumerate(order, 1)]
 
-    def _first(self, ctx: SuggestContext, trials: pd.DataFrame,
-               row_of: dict[str, int]) -> int | None:
+    def _first(self, ctx: SuggestContext, row_of: dict[str, int]) -> int | None:
         nb = ctx.exact_match()
         if nb is None:
             return None
