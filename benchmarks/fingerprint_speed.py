@@ -133,7 +133,8 @@ def main() -> None:
         for g, s in groups.items():
             print(f"  {g:<12} {s:.3f} s")
         os.remove(path)
-
+        if args.big_rows <= 0:
+            return
         big = os.path.join(tmp, "big.parquet")
         t = time.perf_counter()
         write_file(big, args.big_rows, seed=1)

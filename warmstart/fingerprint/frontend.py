@@ -16,7 +16,7 @@ import numpy as np
 
 from warmstart.fingerprint.profile import CLASSIFICATION, DatasetProfile
 
-MAX_ONE_HOT_LEVELS = 30
+MAX_ONE_HOT_LEVELS = 10
 
 
 def labelled_rows(p: DatasetProfile) -> np.ndarray:

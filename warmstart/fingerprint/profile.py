@@ -14,7 +14,7 @@ Column typing rules (applied to every column but the target, in this order):
   ``datetime_column_fraction`` but not used as features, warned;
 * constant: one distinct value -- dropped, warned;
 * boolean: a bool type, numbers whose only values are 0 and 1, or text with exactly two
-  values forming true/false, yes/no, t/f or y/n (any case) -- used as 0/1 numbers;
+  values forming true/false, yes/no, t/f, y/n (any case) or 1/0 -- used as 0/1 numbers;
 * identifier: whole numbers that are all distinct (more than 20 values) and either fill a
   dense range (max - min + 1 <= 2 x count) or sit in a column named like an id (``id``,
   ``..._id``, ``...Id``, ``...ID``); or text whose (more than 20) non-missing values are
@@ -69,8 +69,8 @@ _CODE_SUFFIXES = ("_id", "_code", "_type", "_class", "_cat", "_category", "_grou
                   "_zip", "_level")
 _CODE_NAMES = {"code", "type", "kind", "category", "zip"}
 _ID_NAME = re.compile(r"(^id$|_id$|[a-z0-9]Id$|ID$)")
-_BOOL_STRINGS = ({"true", "false"}, {"yes", "no"}, {"t", "f"}, {"y", "n"})
-_TRUE = {"true", "yes", "t", "y"}
+_BOOL_STRINGS = ({"true", "false"}, {"yes", "no"}, {"t", "f"}, {"y", "n"}, {"1", "0"})
+_TRUE = {"true", "yes", "t", "y", "1"}
 CLASSIFICATION, REGRESSION = "classification", "regression"
 TASKS = (CLASSIFICATION, REGRESSION)
 

@@ -328,12 +328,15 @@ def scan(source: Source, target: str, sample_cap: int = SAMPLE_CAP) -> Scan:
         moments_b = np.zeros((5, n_num))
         for j, c in enumerate(number_cols):
             x = as_float(batch.column(c))
+            nan = np.isnan(x)
             ok = np.isfinite(x)
-            h = hash_floats(x, keys[c])
+            h = hash_floats(x, keys[c], nan)
             row_h += h
-            _update_numbers(number, moments_b, j, x, ok)
-            nonnull[c] += nb - int(np.isnan(x).sum())
-            _update_number_levels(levels[j], distinct[j], x[ok], h[ok], keys[c])
+            v = x[ok]
+            n_nan = int(nan.sum())
+            _update_numbers(number, moments_b, j, v, nb - n_nan - v.size)
+            nonnull[c] += nb - n_nan
+            _update_number_levels(levels[j], distinct[j], v, h[ok], keys[c])
             if c in feature_pos:
                 mask[:, feature_pos[c]] = ~ok
             if cand is not None:
@@ -357,7 +360,9 @@ def scan(source: Source, target: str, sample_cap: int = SAMPLE_CAP) -> Scan:
                         zero_copy_only=False), dtype=object), counts[used].astype(float))
             distinct[slot].add(dh[used])
             values = np.append(parse_numbers(d), np.nan)[codes]
-            _update_numbers(parsed, parsed_b, t, values, np.isfinite(values))
+            finite = np.isfinite(values)
+            _update_numbers(parsed, parsed_b, t, values[finite],
+                            int((np.isinf(values)).sum()))
             if c in feature_pos:
                 mask[:, feature_pos[c]] = ~present
             if cand is not None:
@@ -405,15 +410,18 @@ def scan(source: Source, target: str, sample_cap: int = SAMPLE_CAP) -> Scan:
     )
 
 
-def _update_numbers(stats: NumberStats, moments_b: np.ndarray, j: int, x: np.ndarray,
-                    ok: np.ndarray) -> None:
-    """Fold one column's batch into ``stats`` (moments are merged for all columns later)."""
-    v = x[ok]
-    stats.infinite[j] += int(np.isinf(x).sum())
+def _update_numbers(stats: NumberStats, moments_b: np.ndarray, j: int, v: np.ndarray,
+                    n_infinite: int) -> None:
+    """Fold one column's finite batch values ``v`` into ``stats``.
+
+    The batch's own count, mean and centred power sums go to ``moments_b[:, j]``; they are
+    merged into the running moments for all columns at once after the batch.
+    """
+    stats.infinite[j] += n_infinite
     if v.size == 0:
         return
     stats.finite[j] += v.size
-    stats.zeros[j] += int((v == 0).sum())
+    stats.zeros[j] += v.size - np.count_nonzero(v)
     stats.minimum[j] = min(stats.minimum[j], v.min())
     stats.maximum[j] = max(stats.maximum[j], v.max())
     if stats.integer[j]:

@@ -31,7 +31,6 @@ _M1 = np.uint64(0xBF58476D1CE4E5B9)
 _M2 = np.uint64(0x94D049BB133111EB)
 _GOLDEN = np.uint64(0x9E3779B97F4A7C15)
 NULL_HASH = np.uint64(0x6A09E667F3BCC909)
-_CANONICAL_NAN = np.float64("nan")
 
 
 def mix64(x: np.ndarray) -> np.ndarray:
@@ -42,15 +41,18 @@ def mix64(x: np.ndarray) -> np.ndarray:
     return x ^ (x >> np.uint64(31))
 
 
-def hash_floats(x: np.ndarray, key: np.ndarray | np.uint64) -> np.ndarray:
+def hash_floats(x: np.ndarray, key: np.ndarray | np.uint64,
+                nan: np.ndarray | None = None) -> np.ndarray:
     """Hash float64 values (any shape); NaN -> :data:`NULL_HASH`, -0.0 and 0.0 alike.
 
     ``key`` (a uint64 per column, broadcast against ``x``) makes equal values in different
-    columns hash differently.
+    columns hash differently; ``nan`` is ``np.isnan(x)`` when the caller has it already.
     """
-    clean = np.where(np.isnan(x), _CANONICAL_NAN, x + 0.0)
-    h = mix64(clean.view(np.uint64) ^ key)
-    return np.where(np.isnan(x), NULL_HASH, h)
+    h = mix64((x + 0.0).view(np.uint64) ^ key)  # + 0.0 turns -0.0 into 0.0
+    nan = np.isnan(x) if nan is None else nan
+    if nan.any():
+        h[nan] = NULL_HASH
+    return h
 
 
 def hash_ints(x: np.ndarray, null: np.ndarray, key: np.uint64) -> np.ndarray:
