@@ -68,6 +68,7 @@ def _read_csv(p: Path) -> pd.DataFrame:
         head = fh.read(65536)
     if b"\x00" in head:
         raise BadInputError(f"{p} is not a text table (it contains NUL bytes)")
+    sep = _delimiter(head, sep)
     # pandas silently renames duplicate headers (a, a.1): read the header row raw.
     raw = pd.read_csv(p, sep=sep, header=None, nrows=1, encoding="utf-8", dtype=str)
     names = [str(x) for x in raw.iloc[0].tolist()]
@@ -75,6 +76,18 @@ def _read_csv(p: Path) -> pd.DataFrame:
         dupes = sorted({n for n in names if names.count(n) > 1})
         raise BadInputError(f"{p} has duplicate column names: {', '.join(dupes)}")
     return pd.read_csv(p, sep=sep, encoding="utf-8", low_memory=False)
+
+
+def _delimiter(head: bytes, default: str) -> str:
+    """The field delimiter: ``default``, unless the header line has none of it but does
+    have ';', tab or '|' (a file exported with another list separator, e.g. ';' where
+    the decimal mark is a comma). Read with the wrong one it would be a single column."""
+    first = head.split(b"\n", 1)[0].decode("utf-8", errors="replace")
+    if default in first:
+        return default
+    counts = {d: first.count(d) for d in (";", "\t", "|")}
+    best = max(counts, key=counts.get)
+    return best if counts[best] > 0 else default
 
 
 def iter_parquet_batches(path: str | os.PathLike, batch_rows: int = 65536

@@ -1,0 +1,262 @@
+"""Malformed input through the CLI: a one-line error naming the problem, exit code 2,
+and the history byte-for-byte unchanged. Dirty but usable data is fingerprinted with
+warnings instead (exit 0).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from click.testing import CliRunner
+from sklearn.datasets import load_iris
+
+from cli.main import main
+from tests.conftest import dir_digest
+from warmstart import Fingerprint, fingerprint
+from warmstart.history import KnowledgeBase
+
+GOOD_TRIALS = "n_estimators,max_depth,score,fit_seconds\n100,4,0.95,0.3\n200,,0.96,0.5\n"
+PNG = b"\x89PNG\r\n\x1a\n\x00\x00\x00\rIHDR" + bytes(range(256))
+
+
+class Work:
+    """Files for one case: a history with one study in it, a dataset, trials, fingerprint."""
+
+    def __init__(self, root: Path, template: Path | None = None):
+        self.root = root
+        self.data, self.trials = root / "iris.csv", root / "trials.csv"
+        self.fp_file = root / "fp.json"
+        if template is not None:  # a copy of a prepared one: fast, same bytes
+            shutil.copytree(template, root, dirs_exist_ok=True)
+            self.kb = root / "kb"
+            self.fp = Fingerprint.from_json_file(self.fp_file)
+            return
+        self.kb = KnowledgeBase.init(root / "kb").path
+        # reference dataset: scikit-learn's bundled iris (150 rows, 3 classes)
+        frame = load_iris(as_frame=True).frame
+        self.write("iris.csv", frame.to_csv(index=False))
+        self.write("trials.csv", GOOD_TRIALS)
+        self.fp = fingerprint(frame, target="target")
+        self.write("fp.json", self.fp.to_json())
+        r = CliRunner().invoke(main, self.log())
+        assert r.exit_code == 0, r.output
+
+    def write(self, name: str, content: str | bytes) -> Path:
+        p = self.root / name
+        if isinstance(content, str):
+            content = content.encode("utf-8")
+        p.write_bytes(content)
+        return p
+
+    def log(self, data=None, trials=None, *extra, family="random_forest", target="target"):
+        args = ["log", str(data or self.data), "-t", target, "-f", family,
+                "--trials", str(trials or self.trials), "--kb", str(self.kb)]
+        return args + list(map(str, extra))
+
+    def log_trials(self, csv: str, *extra, name="bad.csv"):
+        return self.log(None, self.write(name, csv), *extra)
+
+    def log_fp(self, fp_obj, *extra):
+        path = self.write("bad-fp.json", fp_obj if isinstance(fp_obj, str)
+                          else json.dumps(fp_obj))
+        return ["log", "--fingerprint", str(path), "-f", "random_forest", "--trials",
+                str(self.trials), "--kb", str(self.kb), *map(str, extra)]
+
+    def fp_dict(self, **change):
+        return {**self.fp.to_dict(), **change}
+
+
+@pytest.fixture(scope="module")
+def template(tmp_path_factory) -> Path:
+    root = tmp_path_factory.mktemp("template")
+    Work(root)
+    return root
+
+
+CASES = [  # id, builder(w) -> CLI args, substring the error must contain
+    # the dataset
+    ("empty data file", lambda w: w.log(w.write("e.csv", "")), "file is empty"),
+    ("header only", lambda w: w.log(w.write("h.csv", "a,b,target\n")), "no rows"),
+    ("one row", lambda w: w.log(w.write("o.csv", "a,target\n1,2\n")),
+     "fewer than two non-missing"),
+    ("target column missing", lambda w: w.log(None, None, target="nope"),
+     "target column 'nope' not found"),
+    ("constant target", lambda w: w.log(w.write("c.csv", "a,target\n1,0\n2,0\n3,0\n")),
+     "is constant"),
+    ("duplicate column names", lambda w: w.log(w.write("d.csv", "a,a,target\n1,2,0\n3,4,1\n")),
+     "duplicate column names: a"),
+    ("undecodable bytes", lambda w: w.log(w.write("u.csv", b"a,target\n\xe9t\xe9,1\nx,0\n")),
+     "not UTF-8"),
+    ("PNG named .csv", lambda w: w.log(w.write("img.csv", PNG)), "not a text table"),
+    ("random binary named .parquet",
+     lambda w: w.log(w.write("r.parquet", np.random.default_rng(0).bytes(512))),
+     "not a Parquet file"),
+    ("data file missing", lambda w: w.log(w.root / "absent.csv"), "file not found"),
+    ("data path is a directory", lambda w: w.log(w.root), "expected a file"),
+    ("ragged CSV rows", lambda w: w.log(w.write("g.csv", "a,target\n1,0\n2,1,7,8\n3,0\n")),
+     "could not read"),
+    # the trials table
+    ("NaN score on an ok trial", lambda w: w.log_trials("n_estimators,score\n100,nan\n"),
+     "needs a finite numeric score"),
+    ("infinite score", lambda w: w.log_trials("n_estimators,score\n100,inf\n"),
+     "score must be finite"),
+    ("non-numeric score", lambda w: w.log_trials("n_estimators,score\n100,high\n"),
+     "score must be a number"),
+    ("score outside the metric's range",
+     lambda w: w.log_trials("n_estimators,score\n100,1.5\n"), "outside the range"),
+    ("positive score for a neg_ loss",
+     lambda w: w.log_trials("n_estimators,score\n100,0.3\n", "--metric", "neg_log_loss"),
+     "outside the range"),
+    ("no score column", lambda w: w.log_trials("n_estimators,fit_seconds\n100,0.2\n"),
+     "no 'score' column"),
+    ("parameter the family does not have",
+     lambda w: w.log_trials("n_neighbors,score\n5,0.9\n"), "does not declare"),
+    ("value of the wrong type", lambda w: w.log_trials("n_estimators,score\nlots,0.9\n"),
+     "'n_estimators' must be a number"),
+    ("value outside its bounds", lambda w: w.log_trials("n_estimators,score\n1,0.9\n"),
+     "outside [10, 1000]"),
+    ("categorical value not declared",
+     lambda w: w.log_trials("criterion,score\nfuzzy,0.9\n"), "must be one of"),
+    ("unknown family", lambda w: w.log(None, None, family="deep_forest"),
+     "unknown model family 'deep_forest'"),
+    ("malformed JSON-lines trials",
+     lambda w: w.log_trials('{"n_estimators": 100, "score": 0.9}\n{"n_est\n', name="t.jsonl"),
+     "could not read"),
+    ("negative fit time",
+     lambda w: w.log_trials("n_estimators,score,fit_seconds\n100,0.9,-3\n"),
+     "fit_seconds must not be negative"),
+    ("unknown status", lambda w: w.log_trials("n_estimators,score,status\n100,0.9,done\n"),
+     "status must be 'ok' or 'failed'"),
+    ("empty trials file", lambda w: w.log_trials(""), "file is empty"),
+    ("trials header only", lambda w: w.log_trials("n_estimators,score\n"), "no rows"),
+    ("duplicate trials columns", lambda w: w.log_trials("score,score\n0.9,0.8\n"),
+     "duplicate column names: score"),
+    ("trials file is a PNG", lambda w: w.log(None, w.write("t.png", PNG)),
+     "not a text table"),
+    # metric
+    ("unknown metric without a direction",
+     lambda w: w.log(None, None, "--metric", "team_lift"), "say its direction"),
+    ("scikit-learn scorer declared lower-is-better",
+     lambda w: w.log(None, None, "--metric", "accuracy", "--lower-is-better"),
+     "higher-is-better"),
+    # fingerprint JSON
+    ("malformed fingerprint JSON", lambda w: w.log_fp('{"kind": "warmstart-fing'),
+     "is not valid JSON"),
+    ("fingerprint of an unknown catalogue version",
+     lambda w: w.log_fp(w.fp_dict(catalogue_version=99)), "unknown catalogue version 99"),
+    ("JSON that is not a fingerprint", lambda w: w.log_fp([1, 2, 3]),
+     "not a warmstart fingerprint"),
+    ("fingerprint with a non-hex dataset hash",
+     lambda w: w.log_fp(w.fp_dict(dataset_hash="z" * 64)), "not 64 hex digits"),
+    ("fingerprint task differs from --task",
+     lambda w: w.log_fp(w.fp_dict(), "--task", "regression"), "the fingerprint is for"),
+    # the history itself
+    ("history path is a file",
+     lambda w: w.log()[:-1] + [str(w.write("not-a-dir", "x"))], "is a file"),
+    ("history path is not a history",
+     lambda w: w.log()[:-1] + [str(w.root)], "not a warmstart history"),
+    ("history of a newer format", lambda w: (
+        (w.kb / "warmstart-history.json").write_text('{"format_version": 9}'), w.log())[1],
+     "upgrade"),
+    ("import of a file that is not an export",
+     lambda w: ["kb", "import", str(w.write("x.zip", PNG)), "--kb", str(w.kb)],
+     "not a warmstart export"),
+    ("negative grace period", lambda w: ["kb", "check", "--kb", str(w.kb), "--grace", "-5"],
+     "grace period"),
+]
+
+
+@pytest.mark.parametrize("build, expected", [c[1:] for c in CASES], ids=[c[0] for c in CASES])
+def test_malformed_input_is_refused_and_nothing_written(tmp_path, template, build, expected):
+    w = Work(tmp_path / "w", template)
+    args = build(w)
+    before = dir_digest(w.kb)
+    r = CliRunner().invoke(main, args)
+    assert r.exit_code == 2, (r.output, r.exception)
+    lines = r.output.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error: "), r.output
+    assert expected in lines[0], lines[0]
+    assert dir_digest(w.kb) == before
+
+
+def test_at_least_thirty_malformed_inputs():
+    assert len(CASES) >= 30
+
+
+def test_read_only_history_is_refused(tmp_path, template, monkeypatch):
+    w = Work(tmp_path / "w", template)
+    before = dir_digest(w.kb)
+    if os.geteuid() == 0:  # root ignores chmod: simulate the check the library makes
+        real = os.access
+        monkeypatch.setattr(os, "access", lambda p, mode, **kw: False if (
+            mode & os.W_OK and Path(p).is_relative_to(w.kb)) else real(p, mode, **kw))
+    else:
+        for d in [w.kb, *(p for p in w.kb.iterdir() if p.is_dir())]:
+            d.chmod(0o555)
+    try:
+        r = CliRunner().invoke(main, w.log())
+    finally:
+        for d in [w.kb, *(p for p in w.kb.iterdir() if p.is_dir())]:
+            d.chmod(0o755)
+    assert r.exit_code == 2 and "read-only" in r.output
+    assert dir_digest(w.kb) == before
+
+
+# -- dirty but usable: fingerprinted with warnings ----------------------------------------
+def _dirty(name: str, n: int = 200) -> pd.DataFrame:
+    rng = np.random.default_rng(3)
+    y = rng.integers(0, 2, n)
+    x = rng.normal(size=n)
+    df = pd.DataFrame({"x": x, "target": y})
+    if name == "all-missing column":
+        df["empty"] = np.nan
+    elif name == "constant column":
+        df["same"] = 7
+    elif name == "infinite values":
+        df.loc[::10, "x"] = np.inf
+    elif name == "100,000-level categorical":
+        n = 100_000
+        df = pd.DataFrame({"x": rng.normal(size=n), "code": [f"c{i}" for i in range(n)],
+                           "target": rng.integers(0, 2, n)})
+    elif name == "mixed types":
+        df["mix"] = pd.Series([5 if i % 3 == 0 else f"t{i}" for i in range(n)], dtype=object)
+    return df
+
+
+@pytest.mark.parametrize("name, warning", [
+    ("all-missing column", "all-missing columns dropped: empty"),
+    ("constant column", "constant columns dropped: same"),
+    ("infinite values", "infinite values treated as missing in: x"),
+    # 100,000 levels in 100,000 rows: an identifier, not a feature
+    ("100,000-level categorical", "identifier-like columns (unique per row) dropped: code"),
+    ("mixed types", "mixed types (numbers and text)"),
+])
+def test_dirty_data_is_fingerprinted_with_warnings(tmp_path, name, warning):
+    df = _dirty(name)
+    path = tmp_path / "dirty.parquet" if len(df) > 1000 else tmp_path / "dirty.csv"
+    if path.suffix == ".csv":
+        df.to_csv(path, index=False)
+    else:
+        df.to_parquet(path)
+    r = CliRunner().invoke(main, ["fingerprint", str(path), "-t", "target", "--json"])
+    assert r.exit_code == 0, r.output
+    out = json.loads(r.stdout)
+    assert any(warning in w for w in out["warnings"]), out["warnings"]
+
+
+def test_semicolon_separated_file_is_read_with_its_delimiter(tmp_path):
+    # A European-style CSV: ';' between fields. Read as one column it would be useless.
+    df = load_iris(as_frame=True).frame
+    path = tmp_path / "semi.csv"
+    df.to_csv(path, index=False, sep=";")
+    r = CliRunner().invoke(main, ["fingerprint", str(path), "-t", "target", "--json"])
+    assert r.exit_code == 0, r.output
+    out = json.loads(r.stdout)
+    comma = fingerprint(df, target="target")
+    assert out["dataset_hash"] == comma.dataset_hash  # the same table as the ',' file
