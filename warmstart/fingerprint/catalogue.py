@@ -150,6 +150,11 @@ def column_summary(prefix: str, group: str, description: str, method: str,
     return register
 
 
+def reduce_or_nan(values: np.ndarray, reducer: Callable[[np.ndarray], float]) -> float:
+    """``reducer(values)`` as a float, NaN for an empty array (an undefined summary)."""
+    return float(reducer(values)) if np.size(values) else float("nan")
+
+
 def catalogue() -> list[dict[str, object]]:
     """The catalogue as a list of dicts, in registration order (groups stay together)."""
     return [mf.to_dict() for mf in CATALOGUE.values()]

@@ -13,7 +13,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
-from warmstart.fingerprint.catalogue import group, meta_feature
+from warmstart.fingerprint.catalogue import group, meta_feature, reduce_or_nan
 from warmstart.fingerprint.frontend import labelled_rows
 from warmstart.fingerprint.profile import CLASSIFICATION, DatasetProfile
 
@@ -95,16 +95,14 @@ def feature_entropy_mean(p: DatasetProfile) -> float:
               "mean over features of I(X; y) = H(X) + H(y) - H(X, y), nats", "[0, inf)",
               basis="sample")
 def mutual_information_mean(p: DatasetProfile) -> float:
-    mi = _mi(p)
-    return float(mi.mean()) if mi.size else float("nan")
+    return reduce_or_nan(_mi(p), np.mean)
 
 
 @meta_feature("mutual_information_max", INFORMATION,
               "Largest mutual information between one feature and the target",
               "max over features of I(X; y), nats", "[0, inf)", basis="sample")
 def mutual_information_max(p: DatasetProfile) -> float:
-    mi = _mi(p)
-    return float(mi.max()) if mi.size else float("nan")
+    return reduce_or_nan(_mi(p), np.max)
 
 
 @meta_feature("equivalent_feature_count", INFORMATION,

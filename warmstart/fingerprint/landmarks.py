@@ -8,6 +8,7 @@ classification, R^2 for regression (Pfahringer, Bensusan & Giraud-Carrier, ICML 
 
 from __future__ import annotations
 
+import functools
 import warnings
 
 import numpy as np
@@ -100,28 +101,20 @@ def _linear(task):
     return Ridge(alpha=1.0)
 
 
-@meta_feature("landmark_stump", LANDMARKS, "Score of a one-split decision tree",
-              f"decision tree of depth 1; {_SCORE}", "[0, 1] or (-inf, 1]", BOTH,
-              basis="sample")
-def landmark_stump(p: DatasetProfile) -> float:
-    return out_of_fold_score(p, _stump)
-
-
-@meta_feature("landmark_nearest_neighbour", LANDMARKS, "Score of 1-nearest-neighbour",
-              f"1-NN (Cover & Hart 1967), Euclidean on the standardised design; {_SCORE}",
-              "[0, 1] or (-inf, 1]", BOTH, basis="sample")
-def landmark_nearest_neighbour(p: DatasetProfile) -> float:
-    return out_of_fold_score(p, _nearest)
-
-
-@meta_feature("landmark_naive_bayes", LANDMARKS, "Score of Gaussian naive Bayes",
-              f"Gaussian naive Bayes; {_SCORE}", "[0, 1]", CLASSIFICATION, basis="sample")
-def landmark_naive_bayes(p: DatasetProfile) -> float:
-    return out_of_fold_score(p, _naive_bayes)
-
-
-@meta_feature("landmark_linear", LANDMARKS, "Score of a regularised linear model",
-              f"logistic regression (C=1, multinomial) or ridge regression (alpha=1); {_SCORE}",
-              "[0, 1] or (-inf, 1]", BOTH, basis="sample")
-def landmark_linear(p: DatasetProfile) -> float:
-    return out_of_fold_score(p, _linear)
+_RANGE = "[0, 1] or (-inf, 1]"
+# (name, description, method, range, tasks, model factory), in catalogue order.
+_LANDMARKS = (
+    ("landmark_stump", "Score of a one-split decision tree", "decision tree of depth 1",
+     _RANGE, BOTH, _stump),
+    ("landmark_nearest_neighbour", "Score of 1-nearest-neighbour",
+     "1-NN (Cover & Hart 1967), Euclidean on the standardised design", _RANGE, BOTH,
+     _nearest),
+    ("landmark_naive_bayes", "Score of Gaussian naive Bayes", "Gaussian naive Bayes",
+     "[0, 1]", CLASSIFICATION, _naive_bayes),
+    ("landmark_linear", "Score of a regularised linear model",
+     "logistic regression (C=1, multinomial) or ridge regression (alpha=1)", _RANGE, BOTH,
+     _linear),
+)
+for _name, _description, _method, _range, _tasks, _factory in _LANDMARKS:
+    meta_feature(_name, LANDMARKS, _description, f"{_method}; {_SCORE}", _range, _tasks,
+                 basis="sample")(functools.partial(out_of_fold_score, make_model=_factory))

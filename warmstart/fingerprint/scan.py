@@ -320,7 +320,7 @@ def scan(source: Source, target: str, sample_cap: int = SAMPLE_CAP) -> Scan:
             continue
         cand = sample.candidates(offset, nb)
         row_h = np.zeros(nb, dtype=np.uint64)
-        mask = np.zeros((nb, m), dtype=bool)
+        mask = np.zeros((nb, m), dtype=bool, order="F")  # filled column by column
         payload: dict[str, np.ndarray] = {}
         if cand is not None:
             payload["num"] = np.empty((cand[0].size, n_num))

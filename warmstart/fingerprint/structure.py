@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from warmstart.fingerprint.catalogue import group, meta_feature
+from warmstart.fingerprint.catalogue import group, meta_feature, reduce_or_nan
 from warmstart.fingerprint.frontend import standardised
 from warmstart.fingerprint.profile import DatasetProfile
 
@@ -47,16 +47,14 @@ def _eigenvalues(p: DatasetProfile) -> np.ndarray:
               "Mean absolute Pearson correlation between pairs of numeric columns",
               "mean over column pairs of |r| (Pearson 1895)", "[0, 1]", basis="sample")
 def correlation_abs_mean(p: DatasetProfile) -> float:
-    u = _upper(p)
-    return float(u.mean()) if u.size else float("nan")
+    return reduce_or_nan(_upper(p), np.mean)
 
 
 @meta_feature("correlation_abs_max", STRUCTURE,
               "Largest absolute Pearson correlation between two numeric columns",
               "max over column pairs of |r|", "[0, 1]", basis="sample")
 def correlation_abs_max(p: DatasetProfile) -> float:
-    u = _upper(p)
-    return float(u.max()) if u.size else float("nan")
+    return reduce_or_nan(_upper(p), np.max)
 
 
 @meta_feature("pca_components_95_fraction", STRUCTURE,
