@@ -265,3 +265,38 @@ def test_export_member_is_plain_parquet(kb, fps, tmp_path):
                                          "trials.parquet", "warmstart-export.json"]
         studies = pq.read_table(pa.BufferReader(zf.read("studies.parquet"))).to_pandas()
     assert sorted(studies["label"]) == ["s0", "s1"]
+
+
+def test_pruned_read_of_a_merged_file_matches_a_plain_filter(tmp_path):
+    # reference: pyarrow.dataset's own filter over the whole file
+    import pyarrow.dataset as pads
+
+    from warmstart.storage import read_where_in
+
+    rows = [{"study_id": f"{i % 7:032x}", "trial_index": i, "config": "{}", "score": 0.5,
+             "fit_seconds": None, "status": "ok", "error": None} for i in range(100)]
+    table = pa.Table.from_pylist(rows, schema=SCHEMAS["trials"]).sort_by("study_id")
+    d = tmp_path / "trials"
+    d.mkdir()
+    f = write_atomic(table, d, batch_name("merged"), row_group_rows=10)
+    assert pq.ParquetFile(f).metadata.num_row_groups == 10
+    wanted = pa.array([f"{2:032x}", f"{5:032x}"])
+    got = read_where_in([f], SCHEMAS["trials"], "study_id", wanted)
+    expected = pads.dataset(str(f)).to_table(filter=pads.field("study_id").isin(wanted))
+    assert got.sort_by("trial_index").equals(expected.sort_by("trial_index"))
+    assert got.num_rows == 28  # 100 rows, ids i % 7 in {2, 5}: 14 + 14
+
+
+def test_family_filtered_read_equals_filtering_everything(kb, fps):
+    fill(kb, fps, 6)
+    kb.log(fingerprint_of=fps["iris"], family="knn", trials=[{"n_neighbors": 5, "score": 0.9}])
+    kb.compact()
+    everything = kb.tables()
+    part = kb.tables(family="knn", task="classification")
+    s = everything["studies"]
+    s = s[(s["family"] == "knn") & (s["task"] == "classification")].reset_index(drop=True)
+    pd.testing.assert_frame_equal(part["studies"], s)
+    t = everything["trials"]
+    pd.testing.assert_frame_equal(
+        part["trials"], t[t["study_id"].isin(s["study_id"])].reset_index(drop=True))
+    assert len(part["trials"]) == 1

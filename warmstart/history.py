@@ -245,7 +245,7 @@ class KnowledgeBase:
 
         id_list = pa.array(sorted(ids), pa.string())
         trials = read_dir(self.path / "trials", SCHEMAS["trials"], columns=trial_columns,
-                          filter=pads.field("study_id").isin(id_list), select=committed)
+                          where_in=("study_id", id_list), select=committed)
         trials = dedupe(trials, "trials") if trial_columns is None else trials
         ds_ids = pa.array(sorted(set(studies.column("dataset_id").to_pylist())), pa.string())
         datasets = read_dir(self.path / "datasets", SCHEMAS["datasets"],

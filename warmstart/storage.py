@@ -47,7 +47,9 @@ import time
 import uuid
 from pathlib import Path
 
+import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.dataset as pads
 import pyarrow.parquet as pq
 
@@ -92,13 +94,17 @@ def batch_name(kind: str) -> str:
     return f"{kind}-{uuid.uuid4().hex}.parquet"
 
 
-def write_atomic(table: pa.Table, directory: Path, name: str) -> Path:
+ROW_GROUP_ROWS = 32_768  # merged files: small enough for a query to skip most groups
+
+
+def write_atomic(table: pa.Table, directory: Path, name: str,
+                 row_group_rows: int | None = None) -> Path:
     """Write ``table`` as ``directory/name`` so that it appears complete or not at all."""
     tmp = directory / f"{TEMP_PREFIX}{uuid.uuid4().hex}-{name}"
     final = directory / name
     try:
         with open(tmp, "wb") as fh:
-            pq.write_table(table, fh, compression="zstd")
+            pq.write_table(table, fh, compression="zstd", row_group_size=row_group_rows)
             _pause("mid-file")
             fh.flush()
             os.fsync(fh.fileno())
@@ -178,20 +184,64 @@ def read_files(files: list[Path], schema: pa.Schema, columns: list[str] | None =
         raise unreadable(files[0].parent, exc) from None
 
 
+def read_where_in(files: list[Path], schema: pa.Schema, column: str, values: pa.Array,
+                  columns: list[str] | None = None) -> pa.Table:
+    """Rows of ``files`` whose ``column`` is in ``values``, reading as little as possible.
+
+    Files written by ``log`` (one study each) are read together. A larger file is read
+    in two passes: first only ``column``, to find the row groups holding a match, then
+    only those row groups. Merged files keep a family's trials together in few row
+    groups (see :func:`warmstart.maintenance.compact`), so a question about one family
+    decodes a fraction of a large history.
+    """
+    small = [f for f in files if parse_log_name(f) is not None]
+    wanted = pads.field(column).isin(values)
+    parts = [read_files(small, schema, columns, wanted)] if small else []
+    for f in (f for f in files if parse_log_name(f) is None):
+        try:
+            pf = pq.ParquetFile(f)
+            n_groups = pf.metadata.num_row_groups
+            if n_groups <= 1:
+                parts.append(read_files([f], schema, columns, wanted))
+                continue
+            keys = pf.read(columns=[column]).column(column)
+            hit = pc.is_in(keys, value_set=values).to_numpy(zero_copy_only=False)
+            sizes = [pf.metadata.row_group(i).num_rows for i in range(n_groups)]
+            starts = np.concatenate([[0], np.cumsum(sizes)])
+            groups = [i for i in range(n_groups) if hit[starts[i]:starts[i + 1]].any()]
+            if not groups:
+                continue
+            tb = pf.read_row_groups(groups, columns=columns)
+        except FileNotFoundError:
+            raise
+        except (OSError, pa.ArrowException) as exc:
+            raise unreadable(f, exc) from None
+        tb = tb.filter(pc.is_in(tb.column(column), value_set=values))
+        names = columns or schema.names
+        parts.append(tb.select(names).cast(pa.schema([schema.field(c) for c in names])))
+    if not parts:
+        return read_files([], schema, columns)
+    return pa.concat_tables(parts)
+
+
 def read_dir(directory: Path, schema: pa.Schema, columns: list[str] | None = None,
-             filter: pads.Expression | None = None, select=None) -> pa.Table:
+             filter: pads.Expression | None = None, select=None,
+             where_in: tuple[str, pa.Array] | None = None) -> pa.Table:
     """Read every committed file of a table directory into one table.
 
-    ``select(files) -> files`` may narrow the listing (e.g. to committed studies). A
-    file that disappears between listing and reading (a concurrent compaction removed
-    it after writing its merged replacement) makes the listing be retried, so the result
-    never misses rows: the merged file holds them.
+    ``select(files) -> files`` may narrow the listing (e.g. to committed studies);
+    ``where_in=(column, values)`` keeps only rows whose ``column`` is in ``values``
+    (see :func:`read_where_in`). A file that disappears between listing and reading (a
+    concurrent compaction removed it after writing its merged replacement) makes the
+    listing be retried, so the result never misses rows: the merged file holds them.
     """
     for _attempt in range(50):
         files = visible_files(directory)
         if select is not None:
             files = select(files)
         try:
+            if where_in is not None:
+                return read_where_in(files, schema, where_in[0], where_in[1], columns)
             return read_files(files, schema, columns, filter)
         except FileNotFoundError:
             time.sleep(0.01)
