@@ -242,14 +242,19 @@ def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strateg
         return
     click.echo(f"{len(found)} starting configurations for {family} "
                f"({found[0].strategy}, metric {found[0].metric or metric or 'default'}); "
-               "norm. score: 1 = best trial of its study (* = partly predicted)")
-    rows = [[s.rank, s.source_name or "-", s.distance,
-             None if s.normalised_score is None else
-             fmt(s.normalised_score) + ("*" if s.predicted else ""),
-             s.score, s.expected_fit_seconds, s.config or "(estimator defaults)"]
-            for s in found]
-    click.echo(table(rows, ["#", "from dataset", "distance", "norm. score", "score",
-                            "est. fit s", "configuration"], align="rlrrrrl"))
+               "norm. score: 1 = best trial of its study")
+    pooled = any(s.expected_normalised is not None for s in found)
+    rows = [[s.rank, s.source_name or "-", s.distance, s.normalised_score, s.score]
+            + ([None if s.expected_normalised is None else
+                fmt(s.expected_normalised) + ("*" if s.predicted else "")] if pooled else [])
+            + [s.expected_fit_seconds, s.config or "(estimator defaults)"] for s in found]
+    headers = ["#", "from dataset", "distance", "norm. score", "score"]
+    headers += ["expected"] if pooled else []
+    headers += ["est. fit s", "configuration"]
+    click.echo(table(rows, headers, align="rlrrr" + ("r" if pooled else "") + "rl"))
+    if pooled:
+        click.echo("expected: similarity-weighted mean norm. score over the nearest datasets "
+                   "(* = partly predicted by surrogates)")
     click.echo("Starting points only: validate the tuned model on held-out data.")
 
 

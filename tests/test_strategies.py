@@ -140,7 +140,7 @@ def test_identical_dataset_gets_its_best_trial_first(small_history, strategy):
         best = json.loads(own.loc[own["score"].idxmax(), "config"])
         out = kb.suggest(frames[name], target="target", family="knn", k=3,
                          strategy=strategy)
-        assert out[0].distance == 0 and out[0].source_name == name
+        assert out[0].distance == pytest.approx(0, abs=1e-9) and out[0].source_name == name
         assert out[0].config == SPACE.clip(best)
 
 
@@ -154,7 +154,9 @@ def test_portfolio_marks_predicted_scores_and_lists_support(small_history):
         weights = [e["weight"] for e in s.support]
         assert math.isclose(sum(weights), 1.0)
         assert {e["predicted"] for e in s.support} <= {True, False}
-        assert 0.0 <= s.normalised_score <= 1.0
+        assert 0.0 <= s.expected_normalised <= 1.0
+        assert math.isclose(s.expected_normalised,
+                            sum(e["weight"] * e["normalised"] for e in s.support))
 
 
 def test_random_is_seeded_and_inside_the_space(small_history):

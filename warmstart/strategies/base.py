@@ -32,6 +32,11 @@ from warmstart.spaces import SearchSpace, config_key
 NORMALISATIONS = ("minmax", "rank")
 
 
+# Distances at or below this count as "the same dataset" (floating-point round-off of
+# the scaled-distance computation can leave ~1e-17 for identical fingerprints).
+SAME_DATASET_DISTANCE = 1e-9
+
+
 def normalise_scores(scores: np.ndarray, direction: str, method: str = "minmax") -> np.ndarray:
     """Normalise one study's scores to [0, 1], 1 = best.
 
@@ -64,10 +69,12 @@ class Suggestion:
 
     ``expected_fit_seconds`` scales the source trial's logged fit time linearly by the
     ratio of row counts (new dataset / source dataset); None when no time was logged.
-    ``predicted`` is True when ``normalised_score`` comes (at least in part) from a
-    surrogate model rather than from trials actually run. ``support`` lists, for
-    strategies that pool several datasets, one entry per source dataset:
-    ``{"dataset_id", "name", "weight", "normalised", "predicted"}``.
+    ``normalised_score`` is the source trial's normalised score in its own study.
+    Strategies that pool several datasets also give ``expected_normalised``, the
+    similarity-weighted mean normalised score over their source datasets, and
+    ``support``, one entry per source: ``{"dataset_id", "name", "weight", "normalised",
+    "predicted"}``. ``predicted`` is True when any of those values comes from a
+    surrogate model rather than from trials actually run.
     """
 
     rank: int
@@ -84,13 +91,14 @@ class Suggestion:
     fit_seconds: float | None = None
     expected_fit_seconds: float | None = None
     predicted: bool = False
+    expected_normalised: float | None = None
     support: tuple[dict[str, Any], ...] = ()
 
     def to_dict(self) -> dict[str, Any]:
         d = dict(self.__dict__)
         d["support"] = [dict(s) for s in self.support]
         for key in ("distance", "score", "normalised_score", "fit_seconds",
-                    "expected_fit_seconds"):
+                    "expected_fit_seconds", "expected_normalised"):
             v = d[key]
             d[key] = None if v is None or not np.isfinite(v) else float(v)
         return d
@@ -191,7 +199,7 @@ class SuggestContext:
 
     def exact_match(self) -> Neighbour | None:
         """The nearest neighbour when it is at distance 0 (the same dataset), else None."""
-        if self.neighbours and self.neighbours[0].distance == 0:
+        if self.neighbours and self.neighbours[0].distance <= SAME_DATASET_DISTANCE:
             return self.neighbours[0]
         return None
 
