@@ -110,8 +110,10 @@ class GreedyPortfolio:
 
     def __init__(self, name: str = "portfolio", *, neighbours: int | None = 10,
                  temperature: float = 1.0, surrogate: str = "forest",
-                 weighted: bool = True, description: str | None = None):
+                 weighted: bool = True, shrink: float = 0.0,
+                 description: str | None = None):
         self.name = name
+        self.shrink = float(shrink)
         self.neighbours = neighbours
         self.temperature = temperature
         self.surrogate = surrogate
@@ -126,10 +128,16 @@ class GreedyPortfolio:
     # -- sources and candidates ---------------------------------------------------
     def _sources(self, ctx: SuggestContext) -> tuple[list, np.ndarray]:
         nbs = list(ctx.neighbours)
-        if self.weighted and self.neighbours is not None:
-            nbs = nbs[:self.neighbours]
+        n_near = len(nbs) if self.neighbours is None else self.neighbours
+        if self.weighted and not self.shrink:
+            nbs = nbs[:n_near]
         d = np.array([nb.distance if math.isfinite(nb.distance) else 1e6 for nb in nbs])
-        w = dataset_weights(d, self.temperature if self.weighted else math.inf)
+        if self.weighted:
+            w = np.zeros(len(nbs))
+            w[:n_near] = dataset_weights(d[:n_near], self.temperature)
+            w = (1 - self.shrink) * w + self.shrink / max(len(nbs), 1)
+        else:
+            w = dataset_weights(d, math.inf)
         units, weights = [], []
         for nb, wd in zip(nbs, w):
             sids = list(ctx.studies.loc[ctx.studies["dataset_id"] == nb.dataset_id,
