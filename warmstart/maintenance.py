@@ -392,6 +392,9 @@ def compact(kb: KnowledgeBase) -> dict[str, Any]:
         write_atomic(merged, kb.path / table, batch_name("merged"), ROW_GROUP_ROWS)
         have = set(_keys(merged, table))
         for f, tb in files:
+            parsed = parse_log_name(f)
+            if parsed is not None and parsed[0] not in committed:
+                continue  # a running writer's file stays, even if its rows are known
             if set(_keys(tb, table)) <= have:
                 f.unlink(missing_ok=True)
                 removed += 1
