@@ -140,6 +140,30 @@ def run(tables, fps, groups, family, strategies, holdout, ks=KS, normalisation="
                            normalisation=normalisation, surrogate_cache=cache)
 
 
+def _cached_regrets(sub, fps, groups, family, strats, norm) -> dict[str, float]:
+    """Mean regret at TUNE_K per strategy, cached in cache/ by a digest of the inputs
+    (the family's results, the fingerprints, the groups, the settings), so a rerun
+    after adding a family only computes the new one. Delete cache/ after changing the
+    strategies' code."""
+    h = hashlib.sha1()
+    st = sub["studies"][sub["studies"]["family"] == family]
+    tr = sub["trials"][sub["trials"]["study_id"].isin(st["study_id"])]
+    h.update(pd.util.hash_pandas_object(tr[["study_id", "config", "score"]],
+                                        index=False).to_numpy().tobytes())
+    h.update(json.dumps({i: fps[i].to_dict()["meta_features"] for i in sorted(fps)},
+                        sort_keys=True).encode())
+    h.update(repr((norm, TUNE_K, HISTORY_TRIALS, SPLIT_SEED, sorted(s.name for s in strats),
+                   sorted(groups.items()))).encode())
+    path = build.CACHE / f"tune-{family}-{h.hexdigest()[:16]}.json"
+    if path.is_file():
+        return json.loads(path.read_text(encoding="utf-8"))
+    res = run(sub, fps, groups, family, strats, None, (TUNE_K,), norm)
+    out = {s.name: float(res.regrets(s.name, TUNE_K).mean()) for s in strats}
+    build.CACHE.mkdir(exist_ok=True)
+    path.write_text(json.dumps(out), encoding="utf-8")
+    return out
+
+
 def _grid_strategies():
     out = [NearestBest()]
     for n, t, s in itertools.product(*GRID.values()):
@@ -155,9 +179,9 @@ def tune(tables, fps, groups, tune_ids, families, log=print):
     rows = []
 
     def score(strats, norm):
-        per = {f: run(sub, fps, groups, f, strats, None, (TUNE_K,), norm) for f in families}
+        per = {f: _cached_regrets(sub, fps, groups, f, strats, norm) for f in families}
         for s in strats:
-            res = {f: float(per[f].regrets(s.name, TUNE_K).mean()) for f in families}
+            res = {f: per[f][s.name] for f in families}
             row = {"strategy": "nearest-best" if s.name == "nearest-best" else "portfolio",
                    "normalisation": norm, "neighbours": getattr(s, "neighbours", None),
                    "temperature": getattr(s, "temperature", None),
