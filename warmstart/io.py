@@ -117,7 +117,10 @@ def open_parquet(path: str | os.PathLike, batch_rows: int = 65536
 
     def batches() -> Iterator[pa.RecordBatch]:
         try:
-            yield from pq.ParquetFile(path).iter_batches(batch_size=batch_rows)
+            # No pre-buffering: pre-buffered column chunks stay allocated until the file
+            # is closed, so memory would grow with the file instead of one row group.
+            pf = pq.ParquetFile(path, pre_buffer=False, buffer_size=1 << 20)
+            yield from pf.iter_batches(batch_size=batch_rows)
         except (OSError, pa.ArrowException) as exc:
             raise BadInputError(f"could not read {path} as Parquet: {exc}") from None
 
