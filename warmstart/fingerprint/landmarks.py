@@ -24,7 +24,7 @@ _SCORE = "balanced accuracy (classification) or R^2 (regression), 3 seeded folds
 
 
 def out_of_fold_score(p: DatasetProfile, make_model) -> float:
-    """Score of ``make_model(task)`` from pooled out-of-fold predictions on the sample."""
+    """Score of ``make_model(task, classes)`` from pooled out-of-fold predictions."""
     from sklearn.metrics import balanced_accuracy_score, r2_score
     from sklearn.model_selection import KFold, StratifiedKFold
 
@@ -46,14 +46,14 @@ def out_of_fold_score(p: DatasetProfile, make_model) -> float:
             if classification and np.unique(y[train]).size < 2:
                 pred[test] = y[train][0]
                 continue
-            model = make_model(p.task).fit(X[train], y[train])
+            model = make_model(p.task, int(y.max()) + 1).fit(X[train], y[train])
             pred[test] = model.predict(X[test])
         if classification:
             return float(balanced_accuracy_score(y, pred))
         return float(r2_score(y, pred))
 
 
-def _stump(task):
+def _stump(task, classes):
     from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
 
     cls = DecisionTreeClassifier if task == CLASSIFICATION else DecisionTreeRegressor
@@ -82,23 +82,24 @@ class OneNearestNeighbour:
         return out
 
 
-def _nearest(task):
+def _nearest(task, classes):
     return OneNearestNeighbour()
 
 
-def _naive_bayes(task):
+def _naive_bayes(task, classes):
     from sklearn.naive_bayes import GaussianNB
 
     return GaussianNB()
 
 
-def _linear(task):
+def _linear(task, classes):
     from sklearn.linear_model import LogisticRegression, Ridge
 
-    if task == CLASSIFICATION:
-        # Newton-Cholesky: a few exact steps, much faster than L-BFGS on small designs.
-        return LogisticRegression(C=1.0, solver="newton-cholesky", max_iter=100)
-    return Ridge(alpha=1.0)
+    if task != CLASSIFICATION:
+        return Ridge(alpha=1.0)
+    # liblinear is many times faster for two classes but has no multinomial model.
+    solver = "liblinear" if classes == 2 else "lbfgs"
+    return LogisticRegression(C=1.0, solver=solver, max_iter=200)
 
 
 _RANGE = "[0, 1] or (-inf, 1]"
@@ -112,7 +113,8 @@ _LANDMARKS = (
     ("landmark_naive_bayes", "Score of Gaussian naive Bayes", "Gaussian naive Bayes",
      "[0, 1]", CLASSIFICATION, _naive_bayes),
     ("landmark_linear", "Score of a regularised linear model",
-     "logistic regression (C=1, multinomial) or ridge regression (alpha=1)", _RANGE, BOTH,
+     "logistic regression (C=1; liblinear for two classes, multinomial L-BFGS for more) "
+     "or ridge regression (alpha=1)", _RANGE, BOTH,
      _linear),
 )
 for _name, _description, _method, _range, _tasks, _factory in _LANDMARKS:
