@@ -41,7 +41,7 @@ import pyarrow.dataset as pads
 from warmstart import __version__
 from warmstart.errors import BadInputError, NothingToSuggestError
 from warmstart.families import get_family
-from warmstart.fingerprint import Fingerprint, fingerprint, load_frame
+from warmstart.fingerprint import Fingerprint, fingerprint
 from warmstart.metrics import DEFAULT_METRIC, MAXIMIZE, MINIMIZE, resolve_metric
 from warmstart.similarity import Neighbour, nearest
 from warmstart.spaces import SearchSpace, config_key
@@ -307,15 +307,7 @@ class KnowledgeBase:
         Everything is validated before anything is written; on any error nothing is.
         """
         fam = get_family(family)
-        if fingerprint_of is not None:
-            fp = (fingerprint_of if isinstance(fingerprint_of, Fingerprint)
-                  else Fingerprint.from_json_file(fingerprint_of))
-            if task is not None and task != fp.task:
-                raise BadInputError(f"the fingerprint is for {fp.task}, not {task}")
-        else:
-            if data is None or target is None:
-                raise BadInputError("give the dataset and its target, or a fingerprint")
-            fp = fingerprint(load_frame(data), target=target, task=task)
+        fp = self._query(data, target, task, fingerprint_of)
         metric_obj = resolve_metric(metric or DEFAULT_METRIC[fp.task], direction)
         checked = validate_trials(trials, fam.space(fp.task), metric_obj)
         if not re.fullmatch(r"[0-9a-f]{64}", fp.dataset_hash):
@@ -402,7 +394,8 @@ class KnowledgeBase:
             return fp
         if data is None or target is None:
             raise BadInputError("give the dataset and its target, or a fingerprint")
-        return fingerprint(load_frame(data), target=target, task=task)
+        # a path goes straight to fingerprint(), which reads Parquet in batches
+        return fingerprint(data, target=target, task=task)
 
     def _neighbours(self, query: Fingerprint, datasets: pd.DataFrame,
                     k: int | None) -> list[Neighbour]:
