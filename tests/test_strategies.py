@@ -19,7 +19,8 @@ from cli.main import main
 from warmstart.errors import BadInputError
 from warmstart.families import get_family
 from warmstart.history import KnowledgeBase
-from warmstart.strategies import STRATEGIES, normalise_scores
+from warmstart.strategies import STRATEGIES, HedgedPortfolio, normalise_scores
+from warmstart.strategies.anchored import AnchoredPortfolio, anchored_trials, median_anchored
 from warmstart.strategies.portfolio import dataset_weights, greedy_order
 from warmstart.surrogate import fit_surrogate
 
@@ -73,6 +74,25 @@ def test_rank_normalisation_matches_scipy_rankdata():
     s = np.array([0.2, 0.5, 0.5, 0.9, -3.0])
     # reference: scipy.stats.rankdata (average ranks for ties)
     assert np.allclose(normalise_scores(s, "maximize", "rank"), (rankdata(s) - 1) / 4)
+
+
+def test_median_anchored_scores_are_one_minus_capped_regret():
+    # reference: worked by hand from 1 - min((best - x) / (best - median), R) / R
+    s = np.array([0.5, 0.6, 0.7, 0.8, 0.9])  # median 0.7, best 0.9: regrets 2, 1.5, 1, .5, 0
+    np.testing.assert_allclose(median_anchored(s), [0, 0, 0, 0.5, 1], atol=1e-12)
+    np.testing.assert_allclose(median_anchored(s, 4.0), [0.5, 0.625, 0.75, 0.875, 1])
+    assert np.all(median_anchored(np.full(4, 0.3)) == 1.0)  # no best-median gap
+    # affine invariance: anchoring raw scores or their min-max image gives the same values
+    x = load_iris().data[:, 0]  # reference: sklearn.preprocessing.minmax_scale
+    np.testing.assert_allclose(median_anchored(x, 2.0), median_anchored(minmax_scale(x), 2.0),
+                               atol=1e-12)
+    t = pd.DataFrame({"study_id": ["a"] * 5 + ["b"] * 3,
+                      "normalised": np.r_[s, [0.0, 0.2, 1.0]]})
+    got = anchored_trials(t, 2.0)["normalised"].to_numpy()
+    np.testing.assert_allclose(got, np.r_[median_anchored(s, 2.0),
+                                          median_anchored(np.array([0.0, 0.2, 1.0]), 2.0)])
+    with pytest.raises(BadInputError, match="regret_cap"):
+        AnchoredPortfolio(regret_cap=0.5)
 
 
 def test_dataset_weights_are_a_softmax_of_scaled_distances():
@@ -157,6 +177,32 @@ def test_portfolio_marks_predicted_scores_and_lists_support(small_history):
         assert 0.0 <= s.expected_normalised <= 1.0
         assert math.isclose(s.expected_normalised,
                             sum(e["weight"] * e["normalised"] for e in s.support))
+
+
+def test_hedged_portfolio_interleaves_the_weighted_and_global_lists(small_history):
+    kb, frames = small_history
+    lists = {n: [s.config for s in kb.suggest(frames["iris"], target="target",
+                                              family="knn", k=6, strategy=n)]
+             for n in ("portfolio", "global-portfolio", "hedged-portfolio")}
+    near, far, got = lists["portfolio"], lists["global-portfolio"], lists["hedged-portfolio"]
+    # rebuild the alternation from the two lists: odd places weighted, even places global
+    want: list = []
+    i = j = 0
+    while len(want) < 6:
+        src, idx = (far, j) if len(want) % 2 else (near, i)
+        c = src[idx]
+        if len(want) % 2:
+            j += 1
+        else:
+            i += 1
+        if c not in want:
+            want.append(c)
+    assert got == want
+    longer = kb.suggest(frames["iris"], target="target", family="knn", k=8,
+                        strategy="hedged-portfolio")
+    assert [s.config for s in longer[:6]] == got  # a prefix does not depend on k
+    with pytest.raises(BadInputError, match="every"):
+        HedgedPortfolio(every=1)
 
 
 def test_random_is_seeded_and_inside_the_space(small_history):

@@ -39,6 +39,8 @@ from benchmarks.realdata import build
 from warmstart.backtest import backtest_tables, plot_regret
 from warmstart.fingerprint import Fingerprint
 from warmstart.strategies import GreedyPortfolio, LibraryDefaults, NearestBest, RandomConfigs
+from warmstart.strategies.anchored import AnchoredPortfolio
+from warmstart.strategies.hedged import HedgedPortfolio
 
 HISTORY_TRIALS = 20
 SPLIT_SEED = 7
@@ -48,6 +50,10 @@ RANDOM_REPEATS = 50
 GRID = {"neighbours": (5, 10, 20), "temperature": (0.25, 1.0, math.inf),
         "surrogate": ("forest", "gp")}
 NORMALISATIONS = ("minmax", "rank")
+# Median-anchored scores are computed by the strategy from the min-max history.
+ANCHORED_TOP = 3  # how many of the best min-max portfolio settings are tried anchored
+REGRET_CAPS = (1.0, 2.0, 4.0)  # and with which regret caps
+HEDGE_EVERY = (2, 3)  # hedged: every n-th place from the dataset-agnostic list
 
 
 def _id(name: str) -> str:
@@ -174,16 +180,25 @@ def _grid_strategies():
 
 def tune(tables, fps, groups, tune_ids, families, log=print):
     """Grid over portfolio settings (min-max scores), then the normalisation of the best
-    two candidates (min-max vs rank), on the tuning half only."""
+    two candidates (min-max vs rank), then the ``ANCHORED_TOP`` best portfolio settings
+    with median-anchored scores and each of ``REGRET_CAPS``
+    (:mod:`warmstart.strategies.anchored`), then the best setting hedged with the
+    dataset-agnostic list (:mod:`warmstart.strategies.hedged`, each of ``HEDGE_EVERY``),
+    on the tuning half only."""
     sub = _restrict(tables, tune_ids)
     rows = []
 
-    def score(strats, norm):
+    def score(strats, norm, label=None):
         per = {f: _cached_regrets(sub, fps, groups, f, strats, norm) for f in families}
         for s in strats:
             res = {f: per[f][s.name] for f in families}
-            row = {"strategy": "nearest-best" if s.name == "nearest-best" else "portfolio",
-                   "normalisation": norm, "neighbours": getattr(s, "neighbours", None),
+            kind = "nearest-best" if s.name == "nearest-best" else "portfolio"
+            if isinstance(s, AnchoredPortfolio):
+                kind = "anchored-portfolio"
+            if isinstance(s, HedgedPortfolio):
+                kind = f"hedged-portfolio every={s.every}"
+            row = {"strategy": kind, "normalisation": label or norm,
+                   "neighbours": getattr(s, "neighbours", None),
                    "temperature": getattr(s, "temperature", None),
                    "surrogate": getattr(s, "surrogate", None), **res,
                    "mean": float(np.mean(list(res.values())))}
@@ -196,12 +211,33 @@ def tune(tables, fps, groups, tune_ids, families, log=print):
     first = pd.DataFrame(rows).sort_values("mean", kind="stable")
     best_portfolio = first[first["strategy"] == "portfolio"].iloc[0]
     score([NearestBest(), _strategy_from(best_portfolio)], "rank")
+    top = first[first["strategy"] == "portfolio"].head(ANCHORED_TOP)
+    for cap in REGRET_CAPS:
+        score([AnchoredPortfolio(f"anchored n={r.neighbours} t={r.temperature} "
+                                 f"{r.surrogate} cap={cap:g}", neighbours=int(r.neighbours),
+                                 temperature=float(r.temperature), surrogate=r.surrogate,
+                                 regret_cap=cap) for r in top.itertuples()],
+              "minmax", f"median cap {cap:g}")
+    bp = best_portfolio
+    score([HedgedPortfolio(f"hedged every={e}", every=e, neighbours=int(bp["neighbours"]),
+                           temperature=float(bp["temperature"]), surrogate=bp["surrogate"])
+           for e in HEDGE_EVERY], "minmax", None)
     return pd.DataFrame(rows).sort_values("mean", kind="stable").reset_index(drop=True)
 
 
 def _strategy_from(row) -> object:
     if row["strategy"] == "nearest-best":
         return NearestBest()
+    if row["strategy"].startswith("hedged-portfolio"):
+        return HedgedPortfolio("hedged-portfolio", every=int(row["strategy"].split("=")[1]),
+                               neighbours=int(row["neighbours"]),
+                               temperature=float(row["temperature"]),
+                               surrogate=row["surrogate"])
+    if row["strategy"] == "anchored-portfolio":
+        return AnchoredPortfolio("anchored-portfolio", neighbours=int(row["neighbours"]),
+                                 temperature=float(row["temperature"]),
+                                 surrogate=row["surrogate"],
+                                 regret_cap=float(row["normalisation"].split()[-1]))
     return GreedyPortfolio("portfolio", neighbours=int(row["neighbours"]),
                            temperature=float(row["temperature"]), surrogate=row["surrogate"])
 
@@ -247,17 +283,18 @@ def main(argv=None) -> int:
     grid = tune(tables, fps, groups, tune_ids, families)
     best = grid.iloc[0]
     chosen = _strategy_from(best)
-    norm = best["normalisation"]
+    # median-anchored scores are computed by the strategy from the min-max history
+    norm = "minmax" if best["normalisation"].startswith("median") else best["normalisation"]
     print("\nTuning half, mean regret@5 (top 5 settings):")
     print(grid.head(5).to_string(index=False, float_format=lambda v: f"{v:.3f}"))
     out = {"chosen": {k: (None if isinstance(v, float) and v != v else v)
                       for k, v in best.to_dict().items()},
            "grid": grid.replace({np.inf: "inf"}).to_dict(orient="records"), "families": {}}
-    strategies = [chosen, NearestBest() if best["strategy"] == "portfolio" else
-                  GreedyPortfolio("portfolio"),
+    # the chosen strategy, the other history strategies, then the baselines
+    others = [s for s in (NearestBest(), GreedyPortfolio("portfolio")) if s.name != chosen.name]
+    strategies = [chosen, *others,
                   GreedyPortfolio("global-portfolio", weighted=False, neighbours=None,
-                                  surrogate=chosen.surrogate if best["strategy"] ==
-                                  "portfolio" else "forest"),
+                                  surrogate=getattr(chosen, "surrogate", "forest")),
                   RandomConfigs(), LibraryDefaults()]
     ok_all = True
     for family in families:

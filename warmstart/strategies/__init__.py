@@ -6,6 +6,7 @@ Register a new strategy by adding an instance to ``_ALL`` below (see DEVELOPERS.
 from __future__ import annotations
 
 from warmstart.errors import BadInputError
+from warmstart.strategies.anchored import AnchoredPortfolio
 from warmstart.strategies.base import (
     Strategy,
     SuggestContext,
@@ -16,6 +17,7 @@ from warmstart.strategies.base import (
     user_space,
 )
 from warmstart.strategies.baselines import LibraryDefaults, RandomConfigs
+from warmstart.strategies.hedged import HedgedPortfolio
 from warmstart.strategies.nearest_best import NearestBest
 from warmstart.strategies.portfolio import GreedyPortfolio
 
@@ -23,6 +25,9 @@ _ALL: tuple[Strategy, ...] = (
     GreedyPortfolio("portfolio"),
     NearestBest(),
     GreedyPortfolio("global-portfolio", weighted=False, neighbours=None),
+    # alternatives tried on the realdata benchmark's tuning half (not better there)
+    AnchoredPortfolio("anchored-portfolio"),
+    HedgedPortfolio("hedged-portfolio"),
     RandomConfigs(),
     LibraryDefaults(),
 )
@@ -44,6 +49,7 @@ def get_strategy(name: str | Strategy) -> Strategy:
         ) from None
 
 
-__all__ = ["DEFAULT_STRATEGY", "STRATEGIES", "GreedyPortfolio", "LibraryDefaults",
+__all__ = ["DEFAULT_STRATEGY", "STRATEGIES", "AnchoredPortfolio", "GreedyPortfolio",
+           "HedgedPortfolio", "LibraryDefaults",
            "NearestBest", "RandomConfigs", "Strategy", "SuggestContext", "Suggestion",
            "canonical_key", "get_strategy", "normalise_scores", "prepare_trials", "user_space"]
