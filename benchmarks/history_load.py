@@ -4,6 +4,7 @@ Usage::
 
     nice -n 10 python benchmarks/history_load.py [--per-writer 40] [--datasets 10000]
                                                   [--trials 1000000] [--queries 20]
+                                                  [--only writers|suggest]
 
 1. Writers. A fresh history on local disk; 1, 4 and 8 writer processes (forked after
    one import, so start-up is not measured) each log ``--per-writer`` small studies at
@@ -142,44 +143,54 @@ def main() -> None:
     ap.add_argument("--datasets", type=int, default=10_000)
     ap.add_argument("--trials", type=int, default=1_000_000)
     ap.add_argument("--queries", type=int, default=20)
+    ap.add_argument("--only", choices=("writers", "suggest"),
+                    help="run one part (both by default)")
     args = ap.parse_args()
     rng = np.random.default_rng(1)
     with tempfile.TemporaryDirectory(dir=os.environ.get("TMPDIR", "/tmp")) as tmp:
         root = Path(tmp)
-        fp = random_fingerprint(rng, "classification")
-        print(f"1. concurrent writers ({args.per_writer} studies each, local disk, fsync on)")
-        base = None
-        for n in (1, 4, 8):
-            rate = writers(n, args.per_writer, fp, root)
-            base = base or rate
-            print(f"   {n} writer(s): {rate:7.1f} studies/s   ratio to 1 writer {rate / base:.2f}")
+        fp = random_fingerprint(rng, "classification")  # drawn always: same queries
+        if args.only != "suggest":
+            run_writers(args.per_writer, fp, root)
+        if args.only != "writers":
+            run_suggest(args, rng, root)
 
-        t0 = time.perf_counter()
-        kb = generate(root, args.datasets, args.trials)
-        size = sum(f.stat().st_size for f in kb.path.rglob("*.parquet"))
-        print(f"\n2. suggest on {args.datasets} datasets / {args.trials} trials "
-              f"(generated in {time.perf_counter() - t0:.1f} s, {size / 2**20:.1f} MiB)")
-        times, full = [], []
-        for q in range(args.queries):
-            task = TASKS[q % 2]
-            query = random_fingerprint(rng, task)
-            family = sorted(FAMILIES)[q % len(FAMILIES)]
-            t = time.perf_counter()
-            out = kb.suggest(fingerprint_of=query, family=family, k=10)
-            times.append(time.perf_counter() - t)
-            assert len(out) == 10
-            t = time.perf_counter()
-            kb.tables()  # baseline read path: every row of every table
-            full.append(time.perf_counter() - t)
-        p50, p99 = percentiles(times)
-        b50, b99 = percentiles(full)
-        print(f"   suggest latency          p50 {p50:6.3f} s   p99 {p99:6.3f} s")
-        print(f"   baseline: read all rows  p50 {b50:6.3f} s   p99 {b99:6.3f} s   "
-              f"(suggest / baseline p50 ratio {p50 / b50:.2f})")
+
+def run_writers(per_writer: int, fp: Fingerprint, root: Path) -> None:
+    print(f"1. concurrent writers ({per_writer} studies each, local disk, fsync on)")
+    base = None
+    for n in (1, 4, 8):
+        rate = writers(n, per_writer, fp, root)
+        base = base or rate
+        print(f"   {n} writer(s): {rate:7.1f} studies/s   ratio to 1 writer {rate / base:.2f}")
+
+
+def run_suggest(args: argparse.Namespace, rng: np.random.Generator, root: Path) -> None:
+    t0 = time.perf_counter()
+    kb = generate(root, args.datasets, args.trials)
+    size = sum(f.stat().st_size for f in kb.path.rglob("*.parquet"))
+    print(f"\n2. suggest on {args.datasets} datasets / {args.trials} trials "
+          f"(generated in {time.perf_counter() - t0:.1f} s, {size / 2**20:.1f} MiB)")
+    times, full = [], []
+    for q in range(args.queries):
+        task = TASKS[q % 2]
+        query = random_fingerprint(rng, task)
+        family = sorted(FAMILIES)[q % len(FAMILIES)]
         t = time.perf_counter()
-        kb.tables(family="random_forest", task="classification")
-        print(f"   filtered read of one family/task: {time.perf_counter() - t:.3f} s")
-
+        out = kb.suggest(fingerprint_of=query, family=family, k=10)
+        times.append(time.perf_counter() - t)
+        assert len(out) == 10
+        t = time.perf_counter()
+        kb.tables()  # baseline read path: every row of every table
+        full.append(time.perf_counter() - t)
+    p50, p99 = percentiles(times)
+    b50, b99 = percentiles(full)
+    print(f"   suggest latency          p50 {p50:6.3f} s   p99 {p99:6.3f} s")
+    print(f"   baseline: read all rows  p50 {b50:6.3f} s   p99 {b99:6.3f} s   "
+          f"(suggest / baseline p50 ratio {p50 / b50:.2f})")
+    t = time.perf_counter()
+    kb.tables(family="random_forest", task="classification")
+    print(f"   filtered read of one family/task: {time.perf_counter() - t:.3f} s")
 
 if __name__ == "__main__":
     sys.exit(main())

@@ -104,6 +104,8 @@ SCHEMAS: dict[str, pa.Schema] = {
         ("error", pa.string()),
     ]),
 }
+# Parsed stored fingerprints kept per KnowledgeBase instance (a few MB at this size).
+META_CACHE_SIZE = 50_000
 KEYS = {"datasets": ["dataset_id"], "studies": ["study_id"], "trials": ["study_id", "trial_index"]}
 # Among rows sharing a key, the first in this order wins, whatever file it came from.
 ORDER = {"datasets": ["dataset_id", "created_at", "name"], "studies": ["study_id", "created_at"],
@@ -267,12 +269,25 @@ class KnowledgeBase:
         if datasets is None:
             datasets = self.tables()["datasets"]
         out = {}
-        for row in datasets.itertuples(index=False):
-            values = {k: (np.nan if v is None else float(v))
-                      for k, v in json.loads(row.meta_features).items()}
-            out[row.dataset_id] = Fingerprint(values, int(row.catalogue_version), row.task,
-                                              row.target, "", json.loads(row.warnings))
+        for did, meta, version, task, target, warnings in zip(
+                datasets["dataset_id"], datasets["meta_features"],
+                datasets["catalogue_version"], datasets["task"], datasets["target"],
+                datasets["warnings"]):
+            out[did] = Fingerprint(dict(self._meta_values(meta)), int(version), task, target,
+                                   "", json.loads(warnings))
         return out
+
+    def _meta_values(self, meta_json: str) -> dict[str, float]:
+        """Parsed ``meta_features`` JSON (null -> NaN), cached by the text itself, so
+        repeated questions to one KnowledgeBase parse each stored fingerprint once."""
+        cache = self.__dict__.setdefault("_meta_cache", {})
+        values = cache.get(meta_json)
+        if values is None:
+            if len(cache) >= META_CACHE_SIZE:
+                cache.clear()
+            values = cache[meta_json] = {k: (np.nan if v is None else float(v))
+                                         for k, v in json.loads(meta_json).items()}
+        return values
 
     # -- writing ----------------------------------------------------------------------
     def log(self, data: pd.DataFrame | str | os.PathLike | None = None, *,
@@ -398,9 +413,13 @@ class KnowledgeBase:
         return fingerprint(data, target=target, task=task)
 
     def _neighbours(self, query: Fingerprint, datasets: pd.DataFrame,
-                    k: int | None) -> list[Neighbour]:
+                    k: int | None, fps: dict[str, Fingerprint] | None = None
+                    ) -> list[Neighbour]:
         same_task = datasets[datasets["task"] == query.task]
-        fps = self.fingerprints(same_task)
+        if fps is None:
+            fps = self.fingerprints(same_task)
+        else:
+            fps = {i: fps[i] for i in same_task["dataset_id"]}
         names = dict(zip(same_task["dataset_id"], same_task["name"]))
         return nearest(query, fps, names, k=k)
 
@@ -470,14 +489,16 @@ class KnowledgeBase:
             )
         studies = studies[studies["metric"] == metric].reset_index(drop=True)
         datasets = t["datasets"][t["datasets"]["dataset_id"].isin(studies["dataset_id"])]
-        rows = {r.dataset_id: float(json.loads(r.meta_features).get("rows") or np.nan)
-                for r in datasets.itertuples(index=False)}
+        fps = self.fingerprints(datasets)
+        rows = {i: float(fp.values.get("rows") or np.nan) for i, fp in fps.items()}
         if space is not None:  # a SearchSpace, a JSON list, or a JSON file's path
             space = user_space(space, fam, query.task)
         ctx = SuggestContext(
             query=query, family=fam, space=space or fam.space(query.task),
-            neighbours=self._neighbours(query, datasets, None), studies=studies,
-            trials=prepare_trials(t["trials"], studies), dataset_rows=rows, seed=seed,
+            neighbours=self._neighbours(query, datasets, None, fps), studies=studies,
+            # configs stay JSON text until a strategy reads them (most read a few rows)
+            trials=prepare_trials(t["trials"], studies, parse_configs=False),
+            dataset_rows=rows, seed=seed,
             restricted=space is not None,
         )
         # Ask for more than k when a time cap may remove some.

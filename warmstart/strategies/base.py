@@ -151,7 +151,9 @@ class SuggestContext:
     @property
     def full_space(self) -> SearchSpace:
         """The family's declared space for the task (configurations are encoded in it)."""
-        return self.family.space(self.query.task)
+        if "_full_space" not in self.extra:
+            self.extra["_full_space"] = self.family.space(self.query.task)
+        return self.extra["_full_space"]
 
     def key(self, config: dict[str, Any]) -> str:
         """:func:`canonical_key` of ``config`` in the family's declared space."""
@@ -165,27 +167,93 @@ class SuggestContext:
             self.extra["_candidate_keys"] = {self.key(c) for c in self.candidates}
         return self.extra["_candidate_keys"]
 
+    # -- row-level access to the trials (parses and keys only the rows asked for) ----
+    def configs_at(self, positions: Any) -> list[dict[str, Any]]:
+        """Parsed configurations of the trials at ``positions`` (row numbers of
+        :attr:`trials`), in that order; each row is parsed once and cached."""
+        cache = self._lazy["configs"]
+        raw = self._lazy["raw"]
+        out = []
+        for i in positions:
+            c = cache[i]
+            if c is None:
+                c = cache[i] = json.loads(raw[i])
+            out.append(c)
+        return out
+
+    def keys_at(self, positions: Any) -> np.ndarray:
+        """Canonical keys of the trials at ``positions``, shape (len(positions),) (cached;
+        a ``key`` column in ``trials`` is used as is)."""
+        positions = np.asarray(positions, dtype=np.intp)
+        frame = self._lazy["frame"]
+        if "key" in frame.columns:
+            return frame["key"].to_numpy()[positions]
+        cache = self._lazy["keys"]
+        todo = [i for i in positions if cache[i] is None]
+        for i, c in zip(todo, self.configs_at(todo)):
+            cache[i] = self.key(c)
+        return cache[positions]
+
+    def rows_at(self, positions: Any) -> pd.DataFrame:
+        """The trials at ``positions`` (in that order) with parsed configurations."""
+        positions = np.asarray(positions, dtype=np.intp)
+        t = self._lazy["frame"].iloc[positions].copy()
+        if not self._lazy["parsed"]:
+            t["config"] = self.configs_at(positions)
+        return t
+
+    def study_positions(self, study_id: str) -> np.ndarray:
+        """Row numbers of :attr:`trials` belonging to one study, ascending."""
+        groups = self._lazy.get("by_study")
+        if groups is None:
+            sid = self._lazy["frame"]["study_id"].to_numpy()
+            groups = self._lazy["by_study"] = {
+                k: np.asarray(v, dtype=np.intp)
+                for k, v in pd.Series(np.arange(sid.size)).groupby(sid, sort=False).groups
+                .items()} if sid.size else {}
+        return groups.get(study_id, np.zeros(0, dtype=np.intp))
+
+    def dataset_studies(self, dataset_id: str) -> list[str]:
+        """Study ids of one dataset, in :attr:`studies` order."""
+        if "_dataset_studies" not in self.extra or self.extra["_dataset_studies"][0] is not \
+                self.studies:
+            by: dict[str, list[str]] = {}
+            for d, s in zip(self.studies["dataset_id"], self.studies["study_id"]):
+                by.setdefault(d, []).append(s)
+            self.extra["_dataset_studies"] = (self.studies, by)
+        return self.extra["_dataset_studies"][1].get(dataset_id, [])
+
+    def dataset_positions(self, dataset_id: str) -> np.ndarray:
+        """Row numbers of the trials of every study on one dataset, best first (ties:
+        study, trial order): the order of :meth:`dataset_trials` (cached)."""
+        cache = self._lazy["ranked"]
+        if dataset_id not in cache:
+            sids = self.dataset_studies(dataset_id)
+            pos = (np.sort(np.concatenate([self.study_positions(s) for s in sids]))
+                   if sids else np.zeros(0, dtype=np.intp))
+            t = self._lazy["frame"].iloc[pos][["normalised", "study_id", "trial_index"]]
+            t = t.set_axis(pos)
+            t = t.sort_values(["normalised", "study_id", "trial_index"],
+                              ascending=[False, True, True], kind="stable")
+            cache[dataset_id] = t.index.to_numpy(dtype=np.intp)
+        return cache[dataset_id]
+
     def surrogate(self, study_id: str, kind: str = "forest"):
         """The (cached) surrogate of one study, fitted on its ``ok`` trials."""
         from warmstart.surrogate import fit_surrogate
 
         cache_key = (study_id, kind)
         if cache_key not in self.surrogates:
-            t = self.trials[self.trials["study_id"] == study_id]
+            pos = self.study_positions(study_id)
             self.surrogates[cache_key] = fit_surrogate(
-                list(t["config"]), t["normalised"].to_numpy(), self.full_space, kind,
-                self.seed)
+                self.configs_at(pos), self._lazy["frame"]["normalised"].to_numpy()[pos],
+                self.full_space, kind, self.seed)
         return self.surrogates[cache_key]
 
     def trial_keys(self) -> np.ndarray:
         """Canonical keys of :attr:`trials`' configurations, shape (n_trials,) (cached;
         a ``key`` column in ``trials`` is used as is)."""
-        if "key" in self.trials.columns:
-            return self.trials["key"].to_numpy()
-        if "_trial_keys" not in self.extra:
-            self.extra["_trial_keys"] = np.array([self.key(c) for c in self.trials["config"]],
-                                                 dtype=object)
-        return self.extra["_trial_keys"]
+        return self.keys_at(np.arange(len(self._lazy["frame"])))
 
     def predict(self, study_id: str, kind: str, configs: list[dict[str, Any]],
                 keys: list[str]) -> np.ndarray:
@@ -205,21 +273,21 @@ class SuggestContext:
 
     def dataset_trials(self, dataset_id: str) -> pd.DataFrame:
         """Trials of every study on one dataset, best first (ties: study, trial order)."""
-        sids = self.studies.loc[self.studies["dataset_id"] == dataset_id, "study_id"]
-        t = self.trials[self.trials["study_id"].isin(sids)]
-        return t.sort_values(["normalised", "study_id", "trial_index"],
-                             ascending=[False, True, True], kind="stable")
+        return self.rows_at(self.dataset_positions(dataset_id))
 
     def from_trial(self, strategy: str, row: Any, nb: Neighbour, config: dict[str, Any],
                    **overrides: Any) -> Suggestion:
         """A suggestion whose source is one logged trial (``row`` of :attr:`trials`)."""
-        meta = self.studies.set_index("study_id").loc[row["study_id"]]
+        if "_study_meta" not in self.extra or self.extra["_study_meta"][0] is not self.studies:
+            self.extra["_study_meta"] = (self.studies, dict(zip(
+                self.studies["study_id"], zip(self.studies["label"], self.studies["metric"]))))
+        label, metric = self.extra["_study_meta"][1][row["study_id"]]
         fit = row["fit_seconds"]
         fields: dict[str, Any] = dict(
             rank=0, config=config, strategy=strategy, source_dataset_id=nb.dataset_id,
-            source_name=nb.name, study_id=row["study_id"], study_label=meta["label"],
+            source_name=nb.name, study_id=row["study_id"], study_label=label,
             distance=nb.distance, score=float(row["score"]),
-            normalised_score=float(row["normalised"]), metric=meta["metric"],
+            normalised_score=float(row["normalised"]), metric=metric,
             fit_seconds=None if fit != fit else float(fit),
             expected_fit_seconds=self.expected_seconds(fit, nb.dataset_id))
         fields.update(overrides)
@@ -237,6 +305,32 @@ class SuggestContext:
         if not np.isfinite(src) or src <= 0 or not np.isfinite(self.query_rows):
             return float(fit_seconds)
         return float(fit_seconds) * self.query_rows / src
+
+
+# ``trials`` is a property so that a context can hold configurations still as JSON text
+# (as :meth:`KnowledgeBase.suggest` passes them): on a large history a strategy then
+# parses only the rows it reads, through :meth:`SuggestContext.configs_at` and the
+# other row-level helpers, and reading ``ctx.trials`` itself parses every row once.
+def _get_trials(self: SuggestContext) -> pd.DataFrame:
+    lazy = self._lazy
+    if not lazy["parsed"]:
+        frame = lazy["frame"]
+        lazy["frame"] = frame.assign(config=self.configs_at(range(len(frame))))
+        lazy["parsed"] = True
+    return lazy["frame"]
+
+
+def _set_trials(self: SuggestContext, trials: pd.DataFrame) -> None:
+    n = len(trials)
+    cfg = trials["config"].to_numpy(dtype=object) if "config" in trials.columns else None
+    raw = cfg is not None and n > 0 and isinstance(cfg[0], str)
+    self._lazy = {"frame": trials, "parsed": not raw, "raw": cfg if raw else None,
+                  "configs": np.full(n, None, dtype=object) if raw or cfg is None
+                  else cfg.copy(),
+                  "keys": np.full(n, None, dtype=object), "ranked": {}}
+
+
+SuggestContext.trials = property(_get_trials, _set_trials)  # type: ignore[assignment]
 
 
 def user_space(spec: Any, family: Family, task: str) -> SearchSpace:
@@ -284,14 +378,31 @@ class Strategy(Protocol):
 
 
 def prepare_trials(trials: pd.DataFrame, studies: pd.DataFrame,
-                   normalisation: str = "minmax") -> pd.DataFrame:
-    """Keep ``ok`` trials of ``studies``, parse configs, add per-study normalised scores."""
+                   normalisation: str = "minmax", parse_configs: bool = True) -> pd.DataFrame:
+    """Keep ``ok`` trials of ``studies``, parse configs, add per-study normalised scores.
+
+    The normalisation is :func:`normalise_scores` per study, computed for all studies
+    at once. With ``parse_configs=False`` the ``config`` column keeps its JSON text (a
+    :class:`SuggestContext` then parses rows only when a strategy reads them).
+    """
+    if normalisation not in NORMALISATIONS:
+        raise BadInputError(f"unknown normalisation {normalisation!r}")
     t = trials[(trials["status"] == "ok") & trials["study_id"].isin(studies["study_id"])]
-    t = t.dropna(subset=["score"]).copy()
+    t = t.dropna(subset=["score"]).reset_index(drop=True)
     direction = dict(zip(studies["study_id"], studies["direction"]))
-    t["config"] = [json.loads(c) for c in t["config"]]
-    t["normalised"] = np.nan
-    for sid, idx in t.groupby("study_id").groups.items():
-        t.loc[idx, "normalised"] = normalise_scores(t.loc[idx, "score"].to_numpy(),
-                                                    direction[sid], normalisation)
-    return t.reset_index(drop=True)
+    if parse_configs:
+        t["config"] = [json.loads(c) for c in t["config"]]
+    score = t["score"].to_numpy(dtype=float)
+    minimize = t["study_id"].map(direction).to_numpy() == MINIMIZE
+    s = pd.Series(np.where(minimize, -score, score))
+    by = s.groupby(t["study_id"].to_numpy(), sort=False)
+    lo, hi = by.transform("min").to_numpy(), by.transform("max").to_numpy()
+    flat = hi == lo
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if normalisation == "rank":
+            size = by.transform("size").to_numpy(dtype=float)
+            norm = (by.rank(method="average").to_numpy() - 1.0) / (size - 1.0)
+        else:
+            norm = (s.to_numpy() - lo) / (hi - lo)
+    t["normalised"] = np.where(flat, 1.0, norm)
+    return t

@@ -21,22 +21,25 @@ class NearestBest:
 
     def propose(self, ctx: SuggestContext, k: int) -> list[Suggestion]:
         allowed = ctx.candidate_keys()
-        per_dataset = [(nb, ctx.dataset_trials(nb.dataset_id)) for nb in ctx.neighbours]
+        # a neighbour's trials are ranked when the round-robin first reaches it
+        sizes = [sum(ctx.study_positions(s).size for s in ctx.dataset_studies(nb.dataset_id))
+                 for nb in ctx.neighbours]
         out: list[Suggestion] = []
         seen: set[str] = set()
         depth = 0
-        while len(out) < k and any(depth < len(t) for _, t in per_dataset):
-            for nb, t in per_dataset:
-                if depth >= len(t) or len(out) >= k:
+        while len(out) < k and any(depth < n for n in sizes):
+            for nb, n in zip(ctx.neighbours, sizes):
+                if depth >= n or len(out) >= k:
                     continue
-                row = t.iloc[depth]
-                config = ctx.space.clip(row["config"])
+                pos = int(ctx.dataset_positions(nb.dataset_id)[depth])
+                config = ctx.space.clip(ctx.configs_at([pos])[0])
                 if config is None:
                     continue
                 key = ctx.key(config)
                 if key in seen or (allowed is not None and key not in allowed):
                     continue
                 seen.add(key)
+                row = ctx.rows_at([pos]).iloc[0]
                 out.append(ctx.from_trial(self.name, row, nb, config, rank=len(out) + 1))
             depth += 1
         return out

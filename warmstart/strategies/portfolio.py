@@ -140,8 +140,7 @@ class GreedyPortfolio:
             w = dataset_weights(d, math.inf)
         units, weights = [], []
         for nb, wd in zip(nbs, w):
-            sids = list(ctx.studies.loc[ctx.studies["dataset_id"] == nb.dataset_id,
-                                        "study_id"])
+            sids = ctx.dataset_studies(nb.dataset_id)
             for sid in sids:
                 units.append((nb, sid))
                 weights.append(wd / len(sids))
@@ -152,8 +151,9 @@ class GreedyPortfolio:
         if not units:
             return []
         unit_ids = [sid for _, sid in units]
-        mask = ctx.trials["study_id"].isin(unit_ids).to_numpy()
-        src = ctx.trials[mask].assign(key=ctx.trial_keys()[mask])
+        # only the sources' rows are parsed and keyed (in the order of ctx.trials)
+        pos = np.unique(np.concatenate([ctx.study_positions(sid) for sid in set(unit_ids)]))
+        src = ctx.rows_at(pos).assign(key=ctx.keys_at(pos))
         # candidates: canonical key -> configuration inside the (user) space
         cands: dict[str, dict] = {}
         pool = ctx.candidates if ctx.candidates is not None else list(src["config"])
@@ -188,8 +188,9 @@ class GreedyPortfolio:
         nb = ctx.exact_match()
         if nb is None:
             return None
-        for row in ctx.dataset_trials(nb.dataset_id).itertuples(index=False):
-            clipped = ctx.space.clip(row.config)
+        positions = ctx.dataset_positions(nb.dataset_id)
+        for config in ctx.configs_at(positions):
+            clipped = ctx.space.clip(config)
             if clipped is not None and ctx.key(clipped) in row_of:
                 return row_of[ctx.key(clipped)]
         return None
