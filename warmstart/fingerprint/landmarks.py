@@ -110,7 +110,7 @@ _LANDMARKS = (
     ("landmark_nearest_neighbour", "Score of 1-nearest-neighbour",
      "1-NN (Cover & Hart 1967), Euclidean on the standardised design", _RANGE, BOTH,
      _nearest),
-    ("landmark_naive_bayes", "Score of Gaussian naive Bayes", "Gaussian naive Bayes",
+    ("landmark_gaussian_bayes", "Score of Gaussian naive Bayes", "Gaussian naive Bayes",
      "[0, 1]", CLASSIFICATION, _naive_bayes),
     ("landmark_linear", "Score of a regularised linear model",
      "logistic regression (C=1; liblinear for two classes, multinomial L-BFGS for more) "
