@@ -22,6 +22,7 @@ import numpy as np
 from warmstart.fingerprint import CATALOGUE, Fingerprint
 
 CLIP = 5.0
+AGREE_STEP = 0.05  # scaled units within which two agreements count as equally close
 # Bookkeeping features that say nothing about how a dataset behaves under tuning.
 IGNORED: frozenset[str] = frozenset({"sample_rows"})
 
@@ -176,12 +177,18 @@ def nearest(query: Fingerprint, history: Mapping[str, Fingerprint], names: Mappi
     order = sorted(range(len(ids)), key=lambda i: (d[i], ids[i]))
     if k is not None:
         order = order[:k]
+    # Agreeing on a value most of the history shares (no date columns, two classes) says
+    # little; among meta-features that agree equally closely (within AGREE_STEP scaled
+    # units), those where the query's value is rare in the history are listed first.
+    with np.errstate(invalid="ignore"):
+        commonness = np.mean(np.abs(Xs - qs[None, :]) < AGREE_STEP, axis=0)
     out = []
     for i in order:
         defined = np.flatnonzero(np.isfinite(diffs[i]))
-        # stable sort: equal differences keep catalogue order
         by_diff = defined[np.argsort(diffs[i, defined], kind="stable")]
-        agree = [(cols[j], q_raw[j], X[i, j]) for j in by_diff[:explain]]
+        closeness = np.floor(diffs[i, defined] / AGREE_STEP)
+        by_agreement = defined[np.lexsort((commonness[defined], closeness))]
+        agree = [(cols[j], q_raw[j], X[i, j]) for j in by_agreement[:explain]]
         differ = [(cols[j], q_raw[j], X[i, j]) for j in by_diff[::-1][:explain]
                   if diffs[i, j] > 0]
         out.append(Neighbour(ids[i], names.get(ids[i], ids[i]), float(d[i]),
