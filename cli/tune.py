@@ -92,6 +92,8 @@ def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, s
                        f"{lg.dataset_id} '{lg.label}')")
         if out is not None and best is not None:
             click.echo(f"best configuration written to {out}")
+        click.echo("The scores above were used to choose the configuration: validate the "
+                   "final model on held-out data.")
     if result.interrupted:
         click.echo("interrupted: the finished trials were kept", err=True)
         sys.exit(EXIT_INTERRUPTED)
