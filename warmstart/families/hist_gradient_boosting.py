@@ -1,10 +1,10 @@
 """Histogram-based gradient boosting (scikit-learn's HistGradientBoosting*)."""
 
 from warmstart.families.base import Family
-from warmstart.spaces import BOOL, FLOAT, INT, Param, SearchSpace
+from warmstart.spaces import BOOL, CATEGORICAL, FLOAT, INT, Param, SearchSpace
 
 
-def _space(loss_choices: tuple | None = None) -> SearchSpace:
+def _space(task: str) -> SearchSpace:
     params = [
         Param("learning_rate", FLOAT, 0.005, 1.0, log=True, default=0.1),
         Param("max_iter", INT, 10, 1000, log=True, default=100),
@@ -15,6 +15,11 @@ def _space(loss_choices: tuple | None = None) -> SearchSpace:
         Param("max_features", FLOAT, 0.1, 1.0, default=1.0),
         Param("early_stopping", BOOL, default=False),
     ]
+    if task == "classification":
+        # Re-weighting classes matters on imbalanced data, where a balanced-accuracy study
+        # otherwise finds only configurations that favour the majority class.
+        params.append(Param("class_weight", CATEGORICAL, choices=(None, "balanced"),
+                            default=None))
     return SearchSpace(tuple(params))
 
 
@@ -25,7 +30,7 @@ FAMILY = Family(
         "classification": "sklearn.ensemble.HistGradientBoostingClassifier",
         "regression": "sklearn.ensemble.HistGradientBoostingRegressor",
     },
-    spaces={"classification": _space(), "regression": _space()},
+    spaces={"classification": _space("classification"), "regression": _space("regression")},
     seeded=True,
     categorical_encoding="native",
 )
