@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import os
 from collections.abc import Callable, Iterator
 from pathlib import Path
@@ -125,3 +126,16 @@ def open_parquet(path: str | os.PathLike, batch_rows: int = 65536
             raise BadInputError(f"could not read {path} as Parquet: {exc}") from None
 
     return schema, n_rows, batches
+
+
+def read_json_file(path: str | os.PathLike, what: str):
+    """Load a JSON file, raising :class:`BadInputError` naming ``what`` it should be."""
+    try:
+        with open(path, encoding="utf-8") as fh:
+            return json.load(fh)
+    except FileNotFoundError:
+        raise BadInputError(f"{what} file not found: {path}") from None
+    except IsADirectoryError:
+        raise BadInputError(f"{what} file {path} is a directory") from None
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise BadInputError(f"{what} file {path} is not valid JSON: {exc}") from None

@@ -33,7 +33,7 @@ from warmstart.fingerprint.profile import (
     profile_table,
 )
 from warmstart.fingerprint.scan import BATCH_ROWS, SAMPLE_CAP
-from warmstart.io import read_table
+from warmstart.io import read_json_file, read_table
 
 # Importing a group module registers its meta-features; this order is the catalogue's.
 GROUP_MODULES = ("shape", "target", "missing", "numeric", "categorical", "structure",
@@ -120,14 +120,7 @@ class Fingerprint:
 
     @classmethod
     def from_json_file(cls, path: str | os.PathLike) -> Fingerprint:
-        try:
-            with open(path, encoding="utf-8") as fh:
-                data = json.load(fh)
-        except FileNotFoundError:
-            raise BadInputError(f"fingerprint file not found: {path}") from None
-        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-            raise BadInputError(f"fingerprint file {path} is not valid JSON: {exc}") from None
-        return cls.from_dict(data)
+        return cls.from_dict(read_json_file(path, "fingerprint"))
 
     def grouped(self) -> dict[str, dict[str, float]]:
         """Values arranged by catalogue group, in catalogue order."""

@@ -25,6 +25,7 @@ import pandas as pd
 from warmstart.errors import BadInputError
 from warmstart.families.base import Family
 from warmstart.fingerprint import Fingerprint
+from warmstart.io import read_json_file
 from warmstart.metrics import MINIMIZE
 from warmstart.similarity import Neighbour
 from warmstart.spaces import SearchSpace, config_key
@@ -342,13 +343,7 @@ def user_space(spec: Any, family: Family, task: str) -> SearchSpace:
     if isinstance(spec, SearchSpace):
         return spec
     if isinstance(spec, (str, os.PathLike)):
-        try:
-            with open(spec, encoding="utf-8") as fh:
-                spec = json.load(fh)
-        except FileNotFoundError:
-            raise BadInputError(f"search-space file not found: {spec}") from None
-        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-            raise BadInputError(f"search-space file {spec} is not valid JSON: {exc}") from None
+        spec = read_json_file(spec, "search-space")
     return SearchSpace.from_dict(spec, within=family.space(task))
 
 
