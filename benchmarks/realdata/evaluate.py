@@ -146,9 +146,23 @@ def _restrict(tables, ids):
                 st["study_id"])]}
 
 
+def recorded_pool(tables, family: str) -> dict[str, list[dict]]:
+    """Task -> the pool the build evaluated for ``family``, read from the results (not
+    recomputed, so a later change to the sampling code cannot desynchronise them)."""
+    st = tables["studies"][tables["studies"]["family"] == family]
+    tr = tables["trials"][tables["trials"]["study_id"].isin(st["study_id"])]
+    out = {}
+    for task, ids in st.groupby("task")["study_id"]:
+        t = tr[tr["study_id"].isin(ids)].sort_values(["study_id", "trial_index"])
+        lists = t.groupby("study_id")["config"].agg(tuple)
+        assert lists.nunique() == 1, f"{family}/{task}: studies ran different pools"
+        out[task] = [json.loads(c) for c in lists.iloc[0]]
+    return out
+
+
 def run(tables, fps, groups, family, strategies, holdout, ks=KS):
     """Backtest ``strategies`` on ``family``, holding out ``holdout`` (None: every one)."""
-    cands = {t: build.pool(family, t) for t in TASKS}
+    cands = recorded_pool(tables, family)
     # the capped space where the build capped it (defaults and random draws stay inside)
     space = {t: build.family_space(family, t) for t in TASKS
              if (family, t) in build.RESTRICT}
