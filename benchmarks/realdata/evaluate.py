@@ -379,8 +379,12 @@ def cached_backtest(tables, fps, groups, family, strategies, ids, half) -> pd.Da
     digest of the inputs, so that a rerun only computes families whose results changed.
     Delete cache/eval-* after changing the strategies' code."""
     names = [s.name for s in strategies]
+    # the settings too: the tuned setting keeps its name when the tuning picks another
+    settings = [(s.name, *(getattr(s, a, None) for a in ("neighbours", "temperature",
+                                                           "weighted", "shrink")))
+                for s in strategies]
     digest = _digest(tables, fps, groups, family, names,
-                     (half, sorted(ids), KS, RANDOM_REPEATS, tuple(names)))
+                     (half, sorted(ids), KS, RANDOM_REPEATS, repr(settings)))
     path = build.CACHE / f"eval-{family}-{half}-{digest}.parquet"
     if path.is_file():
         return pd.read_parquet(path)
