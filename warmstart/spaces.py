@@ -82,8 +82,9 @@ class Param(ABC):
     Every subclass is a frozen dataclass with at least ``name`` (the estimator's keyword,
     verbatim), ``default`` (the value that stands for the parameter when a configuration
     leaves it out: the estimator's own default where that is a value of this kind,
-    otherwise a representative value) and ``condition`` (when set, the parameter is
-    active only under it).
+    otherwise a representative value; SVC's ``gamma="scale"`` is encoded as 0.1, which is
+    what "scale" gives on standardised data with ten columns) and ``condition`` (when
+    set, the parameter is active only under it).
     """
 
     kind: ClassVar[str]
@@ -183,11 +184,25 @@ class Param(ABC):
 
 
 @dataclass(frozen=True)
-class _NumericParam(Param):
-    """A number in ``[low, high]`` (inclusive), on a log scale when ``log``.
+class NumericParam(Param):
+    """A number in ``[low, high]``: what :class:`FloatParam` and :class:`IntParam` share.
 
-    ``allow_none`` also allows ``None`` (scikit-learn's "no limit"), which the encoding
-    places at the top of the range with an extra 0/1 column.
+    Parameters
+    ----------
+    name : str
+        The estimator's keyword argument, verbatim.
+    low, high : float
+        Inclusive bounds (whole numbers for :class:`IntParam`).
+    log : bool
+        Sample and encode on a log scale (needs ``low > 0``).
+    allow_none : bool
+        ``None`` is also allowed (scikit-learn's "no limit"); the encoding places it at
+        the top of the range with an extra 0/1 column.
+    default : float, int or None
+        The value that stands for the parameter when a configuration leaves it out (it
+        may lie outside a user-narrowed range; see :meth:`SearchSpace.clip`).
+    condition : Condition, optional
+        When set, the parameter is active only under that condition.
     """
 
     name: str
@@ -298,8 +313,8 @@ class _NumericParam(Param):
 
 
 @dataclass(frozen=True)
-class FloatParam(_NumericParam):
-    """A real-valued hyperparameter (see :class:`_NumericParam` for the fields)."""
+class FloatParam(NumericParam):
+    """A real-valued hyperparameter (fields as :class:`NumericParam`)."""
 
     kind: ClassVar[str] = FLOAT
 
@@ -311,9 +326,9 @@ class FloatParam(_NumericParam):
 
 
 @dataclass(frozen=True)
-class IntParam(_NumericParam):
-    """An integer hyperparameter; real values round to the nearest integer (half to
-    even, Python's ``round``), then clip to whole-number bounds."""
+class IntParam(NumericParam):
+    """An integer hyperparameter (fields as :class:`NumericParam`); real values round to
+    the nearest integer (half to even, Python's ``round``), then clip to the bounds."""
 
     kind: ClassVar[str] = INT
 
@@ -336,7 +351,19 @@ class IntParam(_NumericParam):
 
 @dataclass(frozen=True)
 class CategoricalParam(Param):
-    """One of a fixed tuple of ``choices`` (``None`` may be one of them); encoded one-hot."""
+    """One of a fixed tuple of values; encoded one-hot.
+
+    Parameters
+    ----------
+    name : str
+        The estimator's keyword argument, verbatim.
+    choices : tuple
+        The allowed values, JSON scalars; ``None`` may be one of them.
+    default : Any
+        The choice that stands for the parameter when a configuration leaves it out.
+    condition : Condition, optional
+        When set, the parameter is active only under that condition.
+    """
 
     kind: ClassVar[str] = CATEGORICAL
     name: str
