@@ -55,12 +55,16 @@ _MISSING = object()
 UNUSABLE = object()
 
 
+_NUMBERS = (int, float, np.integer, np.floating)
+_BOOLS = (bool, np.bool_)
+
+
 def _is_number(value: Any) -> bool:
-    return isinstance(value, (int, float, np.integer, np.floating))
+    return isinstance(value, _NUMBERS)
 
 
 def _is_bool(value: Any) -> bool:
-    return isinstance(value, (bool, np.bool_))
+    return isinstance(value, _BOOLS)
 
 
 def _same(a: Any, b: Any) -> bool:
@@ -116,14 +120,9 @@ class Param(ABC):
         """Return ``value`` as the canonical Python type (after :meth:`problem` said None)."""
         return None if value is None else self._coerce(value)
 
+    @abstractmethod
     def clip(self, value: Any) -> Any:
         """The nearest allowed value, or :data:`UNUSABLE` when there is none."""
-        if value is None and self.accepts_none:
-            return None
-        return self._clip(value)
-
-    def _clip(self, value: Any) -> Any:
-        return self._coerce(value) if self._problem(value) is None else UNUSABLE
 
     @abstractmethod
     def _problem(self, value: Any) -> str | None: ...
@@ -240,10 +239,12 @@ class NumericParam(Param):
             why = f"parameter {self.name!r} = {value!r} is outside [{self.low:g}, {self.high:g}]"
         return why
 
-    def _clip(self, value: Any) -> Any:
-        if _is_number(value) and not isinstance(value, bool):
+    def clip(self, value: Any) -> Any:
+        if value is None:
+            return None if self.allow_none else UNUSABLE
+        if isinstance(value, _NUMBERS) and not isinstance(value, bool):
             return self._snap(float(value))
-        return super()._clip(value)
+        return UNUSABLE
 
     def sample(self, rng: np.random.Generator) -> Any:
         if self.allow_none and rng.random() < NONE_SHARE:
@@ -399,6 +400,10 @@ class CategoricalParam(Param):
     def _coerce(self, value: Any) -> Any:
         return self._match(value)
 
+    def clip(self, value: Any) -> Any:
+        match = self._match(value)  # None matches a None choice
+        return UNUSABLE if match is _MISSING else match
+
     def sample(self, rng: np.random.Generator) -> Any:
         return self.choices[int(rng.integers(len(self.choices)))]
 
@@ -447,6 +452,9 @@ class BoolParam(Param):
 
     def _coerce(self, value: Any) -> Any:
         return bool(value)
+
+    def clip(self, value: Any) -> Any:
+        return bool(value) if isinstance(value, _BOOLS) else UNUSABLE
 
     def sample(self, rng: np.random.Generator) -> Any:
         return bool(rng.integers(2))
