@@ -5,39 +5,43 @@ and the handling of dirty columns live in one place. The table is read once, in 
 (:mod:`.scan`); the profile holds exact one-pass summaries of every row plus a seeded
 sample of at most ``SAMPLE_CAP`` rows (all rows when the table is smaller).
 
-Column typing rules (applied to every column but the target, in this order):
+Column typing rules (applied to every column but the target, in this order). They give
+each column a role (:func:`column_roles`, in brackets), which the preprocessing pipelines
+use too, so that a pipeline models exactly the columns its fingerprint describes:
 
 * unsupported Arrow types (lists, structs, maps): read as their text form;
-* all-missing: no non-missing (for numbers: no finite) value -- dropped, warned;
-* date/time: a date, time or timestamp type, or text of which at least 95 % of the
-  sampled values (first 200 non-missing) look like and parse as dates -- counted in
-  ``datetime_column_fraction`` but not used as features, warned;
-* constant: one distinct value -- dropped, warned;
-* boolean: a bool type, numbers whose only values are 0 and 1, or text with exactly two
-  values forming true/false, yes/no, t/f, y/n (any case) or 1/0 -- used as 0/1 numbers;
-* identifier: whole numbers that are all distinct (more than 20 values) and either fill a
-  dense range (max - min + 1 <= 2 x count) or sit in a column named like an id (``id``,
-  ``..._id``, ``...Id``, ``...ID``); or text whose (more than 20) non-missing values are
-  all distinct -- dropped, warned. Beyond ``LEVEL_CAP`` distinct values "all distinct"
-  means an estimated distinct count of at least 97 % of the values (the sketch's error
-  is about 1.6 %);
-* integer-coded categorical: whole numbers with 3 to ``INTEGER_CATEGORY_MAX_LEVELS``
-  distinct values *and* a name that marks a code (ending in ``_id``, ``_code``,
-  ``_type``, ``_class``, ``_cat``, ``_category``, ``_group``, ``_kind``, ``_zip``,
-  ``_level``, or named ``code``, ``type``, ``kind``, ``category``, ``zip``): both pieces
-  of evidence are needed, since few integer levels alone (ratings, counts of children)
-  usually do carry an order;
-* numbers stored as text: text of which at least 95 % (but not all) of the values parse
-  as decimal numbers -- used as numbers, the rest treated as missing, warned. Text that
-  is entirely numeric (zip codes, codes with leading zeros) stays categorical: it was
-  stored as text on purpose;
-* numeric: every other number column. Infinite values are treated as missing (in the
-  numeric and the missing groups), warned;
-* categorical: everything else. Text that mixes numbers and words (5 % to 95 % of the
-  values parse as numbers, or Python objects of several types in a DataFrame) is
-  categorical, warned. High-cardinality columns (more than max(50, half the
-  non-missing values) levels) are kept for the categorical summaries but left out of the
-  model-based groups (landmarks, information, complexity), warned.
+* all-missing (``empty``): no non-missing (for numbers: no finite) value -- dropped,
+  warned;
+* date/time (``date``): a date, time or timestamp type, or text of which at least 95 %
+  of the sampled values (first 200 non-missing) look like and parse as dates -- counted
+  in ``datetime_column_fraction`` but not used as features, warned;
+* constant (``constant``): one distinct value -- dropped, warned;
+* boolean (``boolean``): a bool type, numbers whose only values are 0 and 1, or text
+  with exactly two values forming true/false, yes/no, t/f, y/n (any case) or 1/0 -- used
+  as 0/1 numbers;
+* identifier (``identifier``): whole numbers that are all distinct (more than 20 values)
+  and either fill a dense range (max - min + 1 <= 2 x count) or sit in a column named
+  like an id (``id``, ``..._id``, ``...Id``, ``...ID``); or text whose (more than 20)
+  non-missing values are all distinct -- dropped, warned. Beyond ``LEVEL_CAP`` distinct
+  values "all distinct" means an estimated distinct count of at least 97 % of the values
+  (the sketch's error is about 1.6 %);
+* integer-coded categorical (``categorical``): whole numbers with 3 to
+  ``INTEGER_CATEGORY_MAX_LEVELS`` distinct values *and* a name that marks a code (ending
+  in ``_id``, ``_code``, ``_type``, ``_class``, ``_cat``, ``_category``, ``_group``,
+  ``_kind``, ``_zip``, ``_level``, or named ``code``, ``type``, ``kind``, ``category``,
+  ``zip``): both pieces of evidence are needed, since few integer levels alone (ratings,
+  counts of children) usually do carry an order;
+* numbers stored as text (``numeric_text``): text of which at least 95 % (but not all)
+  of the values parse as decimal numbers -- used as numbers, the rest treated as
+  missing, warned. Text that is entirely numeric (zip codes, codes with leading zeros)
+  stays categorical: it was stored as text on purpose;
+* numeric (``numeric``): every other number column. Infinite values are treated as
+  missing (in the numeric and the missing groups), warned;
+* categorical (``categorical``): everything else. Text that mixes numbers and words (5 %
+  to 95 % of the values parse as numbers, or Python objects of several types in a
+  DataFrame) is categorical, warned. High-cardinality columns (more than max(50, half
+  the non-missing values) levels) are kept for the categorical summaries but left out of
+  the model-based groups (landmarks, information, complexity), warned.
 """
 
 from __future__ import annotations
