@@ -31,7 +31,7 @@ def test_same_seed_same_trials_in_same_order():
             for _ in range(2)]
     a, b = ([(t.config, t.score, t.origin) for t in r.trials] for r in runs)
     assert a == b and len(a) == 6
-    assert [t.origin for t in runs[0].trials][:4] == ["defaults", "random", "random", "bayes"]
+    assert [t.origin for t in runs[0].trials][:4] == ["defaults", "random", "random", "gp-ei"]
     other = tune(iris(), target="target", family="knn", budget=4, cv=3, seed=5,
                  search="random")
     assert [t.config for t in other.trials][1:] != [c for c, _, _ in a][1:4]
