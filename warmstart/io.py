@@ -218,23 +218,22 @@ def open_directory(path: str | os.PathLike, part_rows: int = PART_ROWS) -> Parqu
         if not is_parquet(f):
             raise BadInputError(f"{f} is not a Parquet file (a data directory holds only "
                                 "Parquet files; names starting with . or _ are skipped)")
-    try:
-        found = ds.dataset(files, format="parquet", partitioning="hive",
-                           partition_base_dir=str(root))
-    except (OSError, pa.ArrowException) as exc:
-        raise BadInputError(f"could not read {path} as a directory of Parquet files: "
-                            f"{_first_line(exc)}") from None
-    keys_of = {f.path: ds.get_partition_keys(f.partition_expression)
-               for f in found.get_fragments()}
-    part_fields = [found.schema.field(k) for k in _partition_keys(root, files)]
-    schemas, parts, start = [], [], 0
+    metas = []
     for f in files:
         try:
-            meta = pq.ParquetFile(f).metadata
+            metas.append(pq.ParquetFile(f).metadata)
         except (OSError, pa.ArrowException) as exc:
             raise BadInputError(f"could not read {f} as Parquet: {_first_line(exc)}") from None
-        schemas.append(meta.schema.to_arrow_schema())
-        partition = tuple((fld.name, keys_of[f].get(fld.name)) for fld in part_fields)
+    schemas = [m.schema.to_arrow_schema() for m in metas]
+    keys = _partition_keys(root, files)
+    clash = sorted(set(keys) & {n for s in schemas for n in s.names})
+    if clash:
+        raise BadInputError(f"{path}: partition keys are also columns of its files: "
+                            f"{', '.join(clash)}")
+    part_fields, keys_of = _partitions(root, files, keys, path)
+    parts, start = [], 0
+    for f, meta in zip(files, metas):
+        partition = tuple((fld.name, keys_of.get(f, {}).get(fld.name)) for fld in part_fields)
         for groups, rows in _runs(meta, part_rows):
             parts.append(Part(f, groups, start, rows, partition))
             start += rows
@@ -249,6 +248,23 @@ def _data_files(root: Path) -> list[str]:
         dirnames[:] = sorted(d for d in dirnames if not d.startswith((".", "_")))
         out += [os.path.join(dirpath, f) for f in filenames if not f.startswith((".", "_"))]
     return sorted(out, key=lambda f: Path(f).relative_to(root).as_posix())
+
+
+def _partitions(root: Path, files: list[str], keys: list[str], path
+                ) -> tuple[list[pa.Field], dict[str, dict]]:
+    """The partition fields as pyarrow.dataset types them (integers when every value is
+    one, else text) and each file's partition values."""
+    if not keys:
+        return [], {}
+    try:
+        found = ds.dataset(files, format="parquet", partitioning="hive",
+                           partition_base_dir=str(root))
+    except (OSError, pa.ArrowException) as exc:
+        raise BadInputError(f"could not read {path} as a directory of Parquet files: "
+                            f"{_first_line(exc)}") from None
+    values = {f.path: ds.get_partition_keys(f.partition_expression)
+              for f in found.get_fragments()}
+    return [found.schema.field(k) for k in keys], values
 
 
 def _partition_keys(root: Path, files: list[str]) -> list[str]:
@@ -285,14 +301,11 @@ def _unified(schemas: list[pa.Schema], part_fields: list[pa.Field], path) -> pa.
     except (pa.ArrowException, TypeError) as exc:
         raise BadInputError(f"the files of {path} have incompatible columns: "
                             f"{_first_line(exc)}") from None
-    clash = sorted({f.name for f in part_fields} & set(schema.names))
-    if clash:
-        raise BadInputError(f"{path}: partition keys are also columns of its files: "
-                            f"{', '.join(clash)}")
     if len(set(schema.names)) != len(schema.names):
         dupes = sorted({n for n in schema.names if schema.names.count(n) > 1})
         raise BadInputError(f"{path} has duplicate column names: {', '.join(dupes)}")
-    return pa.schema(list(schema) + part_fields)
+    # the first file's metadata, as pyarrow.dataset keeps it (pandas dtypes on reading)
+    return pa.schema(list(schema) + part_fields, metadata=schemas[0].metadata)
 
 
 def part_batches(part: Part, schema: pa.Schema, batch_rows: int = 65536
