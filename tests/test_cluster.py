@@ -77,6 +77,10 @@ def test_parts_ship_their_share_of_the_sample_not_their_rows(data_dir):
     small = [BottomKSample(200, SEED).smallest(0, 3000),
              BottomKSample(200, SEED).smallest(3000, d.n_rows)]
     bound = BottomKSample.bound_of(small, 200)
+    # however the rows are split into ranges, the threshold is the same
+    assert bound == BottomKSample.bound_of([BottomKSample(200, SEED).smallest(0, d.n_rows)],
+                                           200)
+    assert BottomKSample.bound_of([BottomKSample(200, SEED).smallest(0, 150)], 200) is None
     accs = [scan_part(d.schema, p, layout, 200, 65536, bound) for p in d.parts]
     assert sum(a.sample.index.size for a in accs) == 200  # exactly the sample, in total
     sizes = [len(pickle.dumps(a)) for a in accs]

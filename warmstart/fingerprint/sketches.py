@@ -254,9 +254,9 @@ class BottomKSample:
     @staticmethod
     def bound_of(smallest: list[np.ndarray], cap: int) -> int | None:
         """The whole table's ``bound`` from :meth:`smallest` of ranges covering it; None
-        when the table has at most ``cap`` rows (every row is kept)."""
+        when the table has fewer than ``cap`` rows (every row is kept)."""
         allp = np.concatenate([np.zeros(0, dtype=np.uint64), *smallest])
-        if allp.size <= cap:
+        if allp.size < cap:
             return None
         return int(np.partition(allp, cap - 1)[cap - 1])
 
