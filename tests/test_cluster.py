@@ -17,7 +17,7 @@ import pyarrow.parquet as pq
 import pytest
 
 pytest.importorskip("distributed")
-from dask.distributed import Client, LocalCluster  # noqa: E402
+from dask.distributed import LocalCluster  # noqa: E402
 
 from tests.test_partitioned import TARGET, mixed_frame, write_partitioned  # noqa: E402
 from warmstart import cluster as wcluster  # noqa: E402
@@ -32,9 +32,10 @@ SLEEP = 1.0  # seconds each part task sleeps in the kill tests
 
 @pytest.fixture(scope="module")
 def client():
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                      dashboard_address=None) as cluster, \
-            Client(cluster, set_as_default=False) as c:
+    # what cluster="local:2" starts: 2 single-threaded worker processes on 127.0.0.1
+    with wcluster.connect("local:2") as c:
+        assert isinstance(c.cluster, LocalCluster) and len(c.cluster.workers) == 2
+        assert all(w.process is not None for w in c.cluster.workers.values())  # processes
         yield c
 
 
@@ -98,12 +99,6 @@ def test_bad_cluster_arguments_fail_before_anything_runs(data_dir, monkeypatch):
     with pytest.raises(wcluster.ClusterError, match="could not reach") as err:
         fingerprint(data_dir, target=TARGET, cluster="tcp://127.0.0.1:9")  # discard port
     assert "\n" not in str(err.value)
-
-
-def test_local_spec_starts_and_stops_its_own_cluster(tmp_path):
-    root = write_partitioned(tmp_path / "small", n=800, seed=2, files_per_dir=2)
-    alone = fingerprint(root, target=TARGET)
-    assert fingerprint(root, target=TARGET, cluster="local:1").to_json() == alone.to_json()
 
 
 def _kill_a_busy_worker(client) -> int:
