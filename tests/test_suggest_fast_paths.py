@@ -15,7 +15,7 @@ from warmstart.families import get_family
 from warmstart.fingerprint import Fingerprint
 from warmstart.similarity import Neighbour
 from warmstart.spaces import config_key
-from warmstart.strategies import STRATEGIES, SuggestContext, prepare_trials
+from warmstart.strategies import STRATEGIES, SuggestContext, TrialIndex, prepare_trials
 
 FAMILY = get_family("knn")
 SPACE = FAMILY.space("classification")
@@ -68,7 +68,8 @@ def _context(trials: pd.DataFrame, studies: pd.DataFrame, exact: bool) -> Sugges
                      0.5, 1, [], []) for d in (2, 0, 1, 3, 4, 5)]
     rows = {f"d{d}": 50.0 * (d + 1) for d in range(6)}
     return SuggestContext(query=query, family=FAMILY, space=SPACE, neighbours=nbs,
-                          studies=studies, trials=trials, dataset_rows=rows, seed=1)
+                          studies=studies, trials=TrialIndex(trials, SPACE), dataset_rows=rows,
+                          seed=1)
 
 
 @pytest.mark.parametrize("exact", [False, True])
@@ -82,7 +83,12 @@ def test_configs_kept_as_json_text_give_the_same_suggestions(name, exact):
     ctx = _context(text, studies, exact)
     got = [s.to_dict() for s in STRATEGIES[name].propose(ctx, 8)]
     assert got == want and (name in ("random", "defaults") or len(got) > 0)
-    # reading ctx.trials parses every row, as json.loads does (reference: Python json)
-    assert list(ctx.trials["config"]) == list(parsed["config"])
-    assert ctx.dataset_trials("d1").equals(_context(parsed, studies, exact)
-                                           .dataset_trials("d1"))
+    # reading every trial parses every row, as json.loads does (reference: Python json)
+    assert list(ctx.trials.frame["config"]) == list(parsed["config"])
+    other = _context(parsed, studies, exact)
+    best_first = ctx.trials.rows_at(ctx.dataset_positions("d1"))
+    assert best_first.equals(other.trials.rows_at(other.dataset_positions("d1")))
+    # reference: pandas sort_values over the dataset's trials (best first, then trial order)
+    want = parsed[parsed["study_id"] == "s1"].sort_values(
+        ["normalised", "trial_index"], ascending=[False, True], kind="stable")
+    assert best_first.equals(want)
