@@ -137,6 +137,72 @@ def study_tables(study_id: str, dataset_id: str, label: str, family: str, fp: Fi
     return {"datasets": dataset_table, "trials": trial_table, "studies": study_table}
 
 
+def visible_tables(root: Path, family: str | None = None, task: str | None = None,
+                   trial_columns: list[str] | None = None) -> dict[str, pa.Table]:
+    """What :meth:`KnowledgeBase.arrow_tables` returns, for the history at ``root``."""
+    cond = None
+    for col, value in (("family", family), ("task", task)):
+        if value is not None:
+            term = pads.field(col) == value
+            cond = term if cond is None else cond & term
+    studies = dedupe(read_dir(root / "studies", SCHEMAS["studies"], filter=cond),
+                     "studies")
+    ids = set(studies.column("study_id").to_pylist())
+
+    def committed(files: list[Path]) -> list[Path]:
+        return [f for f in files if (p := parse_log_name(f)) is None or p[0] in ids]
+
+    id_list = pa.array(sorted(ids), pa.string())
+    trials = read_dir(root / "trials", SCHEMAS["trials"], columns=trial_columns,
+                      where_in=("study_id", id_list), select=committed)
+    trials = dedupe(trials, "trials") if trial_columns is None else trials
+    ds_ids = pa.array(sorted(set(studies.column("dataset_id").to_pylist())), pa.string())
+    datasets = read_dir(root / "datasets", SCHEMAS["datasets"],
+                        filter=pads.field("dataset_id").isin(ds_ids), select=committed)
+    return {"datasets": dedupe(datasets, "datasets"), "studies": studies,
+            "trials": trials}
+
+
+def write_study(root: Path, fname: str, tables: dict[str, pa.Table]) -> None:
+    """Write one study's tables as ``fname`` in each table directory: dataset first,
+    trials next, the study row last (the study file commits)."""
+    try:
+        write_atomic(tables["datasets"], root / "datasets", fname)
+        _pause("after-dataset")
+        write_atomic(tables["trials"], root / "trials", fname)
+        _pause("after-trials")
+        write_atomic(tables["studies"], root / "studies", fname)
+    except PermissionError:
+        raise BadInputError(f"history {root} is read-only (permission denied)") from None
+
+
+def dataset_known(root: Path, dataset_id: str) -> bool:
+    """Whether a committed study already refers to ``dataset_id``.
+
+    Files written by ``log`` carry the dataset id in their name, so only the few
+    merged/imported study files need reading.
+    """
+    studies_dir = root / "studies"
+    if any(p is not None and p[1] == dataset_id
+           for p in map(parse_log_name, visible_files(studies_dir))):
+        return True
+    found = read_dir(studies_dir, SCHEMAS["studies"], columns=["dataset_id"],
+                     filter=pads.field("dataset_id") == dataset_id,
+                     select=lambda fs: [f for f in fs if parse_log_name(f) is None])
+    return found.num_rows > 0
+
+
+def check_writable(root: Path) -> None:
+    """Refuse (:class:`BadInputError`) a history whose table directories are missing or
+    read-only, before anything is written."""
+    for table in SCHEMAS:
+        d = root / table
+        if not d.is_dir():
+            raise BadInputError(f"history {root} is missing its {table}/ directory")
+        if not os.access(d, os.W_OK | os.X_OK):
+            raise BadInputError(f"history {root} is read-only ({d} is not writable)")
+
+
 class KnowledgeBase:
     """A team history on disk.
 
@@ -188,27 +254,7 @@ class KnowledgeBase:
         are read (Parquet filters), which keeps a question about one family fast on a
         large history.
         """
-        cond = None
-        for col, value in (("family", family), ("task", task)):
-            if value is not None:
-                term = pads.field(col) == value
-                cond = term if cond is None else cond & term
-        studies = dedupe(read_dir(self.path / "studies", SCHEMAS["studies"], filter=cond),
-                         "studies")
-        ids = set(studies.column("study_id").to_pylist())
-
-        def committed(files: list[Path]) -> list[Path]:
-            return [f for f in files if (p := parse_log_name(f)) is None or p[0] in ids]
-
-        id_list = pa.array(sorted(ids), pa.string())
-        trials = read_dir(self.path / "trials", SCHEMAS["trials"], columns=trial_columns,
-                          where_in=("study_id", id_list), select=committed)
-        trials = dedupe(trials, "trials") if trial_columns is None else trials
-        ds_ids = pa.array(sorted(set(studies.column("dataset_id").to_pylist())), pa.string())
-        datasets = read_dir(self.path / "datasets", SCHEMAS["datasets"],
-                            filter=pads.field("dataset_id").isin(ds_ids), select=committed)
-        return {"datasets": dedupe(datasets, "datasets"), "studies": studies,
-                "trials": trials}
+        return visible_tables(self.path, family, task, trial_columns)
 
     def tables(self, family: str | None = None, task: str | None = None
                ) -> dict[str, pd.DataFrame]:
@@ -288,8 +334,8 @@ class KnowledgeBase:
         label = name or (Path(data).stem if isinstance(data, (str, os.PathLike)) else
                          f"dataset-{fp.dataset_hash[:8]}")
         dataset_id, study_id = fp.dataset_hash[:16], uuid.uuid4().hex
-        is_new = not self._dataset_known(dataset_id)
-        self._write_study(log_name(study_id, dataset_id), study_tables(
+        is_new = not dataset_known(self.path, dataset_id)
+        write_study(self.path, log_name(study_id, dataset_id), study_tables(
             study_id, dataset_id, label, fam.name, fp, metric_obj, checked, source,
             datetime.now(timezone.utc)))
         scores = [t.score for t in checked if t.status == OK]
@@ -299,39 +345,8 @@ class KnowledgeBase:
         return LoggedStudy(study_id, dataset_id, is_new, fam.name, fp.task, metric_obj.name,
                            metric_obj.direction, label, len(checked), len(scores), best)
 
-    def _write_study(self, fname: str, tables: dict[str, pa.Table]) -> None:
-        """Dataset first, trials next, the study row last: the study file commits."""
-        try:
-            write_atomic(tables["datasets"], self.path / "datasets", fname)
-            _pause("after-dataset")
-            write_atomic(tables["trials"], self.path / "trials", fname)
-            _pause("after-trials")
-            write_atomic(tables["studies"], self.path / "studies", fname)
-        except PermissionError:
-            raise BadInputError(f"history {self.path} is read-only (permission denied)") from None
-
-    def _dataset_known(self, dataset_id: str) -> bool:
-        """Whether a committed study already refers to ``dataset_id``.
-
-        Files written by ``log`` carry the dataset id in their name, so only the few
-        merged/imported study files need reading.
-        """
-        studies_dir = self.path / "studies"
-        if any(p is not None and p[1] == dataset_id
-               for p in map(parse_log_name, visible_files(studies_dir))):
-            return True
-        found = read_dir(studies_dir, SCHEMAS["studies"], columns=["dataset_id"],
-                         filter=pads.field("dataset_id") == dataset_id,
-                         select=lambda fs: [f for f in fs if parse_log_name(f) is None])
-        return found.num_rows > 0
-
     def _check_writable(self) -> None:
-        for table in SCHEMAS:
-            d = self.path / table
-            if not d.is_dir():
-                raise BadInputError(f"history {self.path} is missing its {table}/ directory")
-            if not os.access(d, os.W_OK | os.X_OK):
-                raise BadInputError(f"history {self.path} is read-only ({d} is not writable)")
+        check_writable(self.path)
 
     # -- questions ------------------------------------------------------------------
     def similar(self, data: pd.DataFrame | str | os.PathLike | None = None, *,
