@@ -45,7 +45,7 @@ from warmstart.metrics import DEFAULT_METRIC, resolve_metric
 from warmstart.pipelines import make_pipeline
 from warmstart.spaces import SearchSpace, config_key
 from warmstart.storage import write_bytes_atomic
-from warmstart.strategies.base import user_space
+from warmstart.strategies import user_space
 from warmstart.trials import FAILED, OK
 
 SEARCHES = ("bayes", "random")

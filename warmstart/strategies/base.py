@@ -18,7 +18,6 @@ count as the same configuration.
 from __future__ import annotations
 
 import json
-import os
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Protocol
 
@@ -26,8 +25,6 @@ import numpy as np
 import pandas as pd
 
 from warmstart.errors import BadInputError
-from warmstart.families.base import Family
-from warmstart.io import read_json_file
 from warmstart.metrics import MINIMIZE
 from warmstart.spaces import SearchSpace, config_key
 from warmstart.values import finite_or_none
@@ -113,19 +110,6 @@ class Suggestion:
                     "expected_fit_seconds", "expected_normalised"):
             d[key] = finite_or_none(d[key])
         return d
-
-
-def user_space(spec: Any, family: Family, task: str) -> SearchSpace:
-    """A user restriction of ``family``'s space for ``task``.
-
-    ``spec`` is a :class:`SearchSpace` (returned as is), a JSON list as accepted by
-    :meth:`SearchSpace.from_dict`, or the path of a JSON file holding one.
-    """
-    if isinstance(spec, SearchSpace):
-        return spec
-    if isinstance(spec, (str, os.PathLike)):
-        spec = read_json_file(spec, "search-space")
-    return SearchSpace.from_dict(spec, within=family.space(task))
 
 
 def canonical_key(space: SearchSpace, config: dict[str, Any]) -> str:
