@@ -153,7 +153,11 @@ class Client:
 
     def info(self) -> dict[str, Any]:
         """See :meth:`KnowledgeBase.info`."""
-        return self.request("GET", "/api/info")
+        got = self.request("GET", "/api/info")
+        # JSON object keys are text; the directory's answer keys versions by int
+        versions = got.get("fingerprints_by_catalogue_version", {})
+        got["fingerprints_by_catalogue_version"] = {int(k): v for k, v in versions.items()}
+        return got
 
     def tables(self, family: str | None = None, task: str | None = None) -> dict[str, Any]:
         """See :meth:`KnowledgeBase.tables` (the three tables as DataFrames)."""
@@ -164,7 +168,7 @@ class Client:
         """Stored fingerprints by dataset id (of ``datasets``' rows when given)."""
         got = self.request("GET", "/api/fingerprints")
         keep = None if datasets is None else set(datasets["dataset_id"])
-        return {i: Fingerprint.from_dict(d) for i, d in got.items()
+        return {i: wire.stored_fingerprint(d) for i, d in got.items()
                 if keep is None or i in keep}
 
     def similar(self, data=None, *, target: str | None = None, k: int = 5,

@@ -30,6 +30,7 @@ from warmstart.service import wire
 
 MIN_TOKEN_LENGTH = 16
 DEFAULT_MAX_BODY_BYTES = 8 * 1024 * 1024
+DRAIN_FACTOR = 4
 OPEN_ROUTES = frozenset({"/health", "/openapi.json"})
 WRITE_ROUTES = frozenset({("POST", "/api/log"), ("POST", "/api/check/repair")})
 BODY_METHODS = frozenset({"POST", "PUT", "PATCH", "DELETE"})
@@ -175,16 +176,23 @@ class Guard:
         return None
 
     async def _read_body(self, headers, receive) -> bytes | tuple:
+        """The whole body, or the (status, payload, headers) refusing it.
+
+        A body over the limit is read on and dropped up to ``DRAIN_FACTOR`` times the
+        limit before the 413 goes out, so that a client still sending sees the answer
+        instead of a reset connection; one announcing more than that is answered at once.
+        """
         too_large = (413, {"error": f"request body larger than {self.max_body_bytes} bytes",
                            "kind": wire.TOO_LARGE}, [])
         length = headers.get(b"content-length")
         if length is not None:
             try:
-                if int(length) > self.max_body_bytes:
-                    return too_large
+                announced = int(length)
             except ValueError:
                 return (400, {"error": "bad Content-Length header",
                               "kind": wire.INVALID_REQUEST}, [])
+            if announced > DRAIN_FACTOR * self.max_body_bytes:
+                return too_large
         chunks, size = [], 0
         while True:
             message = await receive()
@@ -192,12 +200,13 @@ class Guard:
                 break
             chunk = message.get("body", b"")
             size += len(chunk)
-            if size > self.max_body_bytes:
+            if size <= self.max_body_bytes:
+                chunks.append(chunk)
+            elif size > DRAIN_FACTOR * self.max_body_bytes:
                 return too_large
-            chunks.append(chunk)
             if not message.get("more_body", False):
                 break
-        return b"".join(chunks)
+        return too_large if size > self.max_body_bytes else b"".join(chunks)
 
     def _with_headers(self, send):
         async def wrapped(message):

@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from warmstart.backtest import BacktestResult
+from warmstart.fingerprint import Fingerprint
 from warmstart.history import LoggedStudy
 from warmstart.maintenance import CheckReport, Finding
 from warmstart.similarity import Neighbour
@@ -67,6 +68,14 @@ def trials_to_wire(trials: TrialsInput) -> list[dict[str, Any]]:
     """A trials table (frame, file or list of dicts) as JSON objects; blanks as null."""
     df = load_trials(trials)
     return jsonable(df.astype(object).where(df.notna(), None).to_dict(orient="records"))
+
+
+def stored_fingerprint(d: dict[str, Any]) -> Fingerprint:
+    """A stored fingerprint from its ``to_dict()``: as trusted as the history it came from
+    (stored ones carry no dataset hash, which :meth:`Fingerprint.from_dict` requires)."""
+    return Fingerprint({k: _nan(v) for k, v in d["meta_features"].items()},
+                       int(d["catalogue_version"]), d["task"], d["target"],
+                       d.get("dataset_hash", ""), list(d.get("warnings", [])))
 
 
 # -- results ----------------------------------------------------------------------------------
