@@ -2,21 +2,20 @@
 
 Standalone click commands, each a thin layer over the library function of the same
 name (:func:`warmstart.service.app.serve`, :func:`warmstart.service.maps.map`,
-:func:`warmstart.service.report.report`); registered on the main group with
-``main.add_command``. ``python -m cli.serve`` runs the server alone.
+:func:`warmstart.service.report.report`), to register on the main group with
+``main.add_command`` (:data:`COMMANDS`). ``python -m cli.serve`` runs the server alone.
 """
 
 from __future__ import annotations
 
-import functools
 import os
-import sys
 from pathlib import Path
 
 import click
 
+from cli.main import handle_errors, json_option
 from cli.output import emit_json, fmt, table
-from warmstart.errors import BadInputError, WarmstartError
+from warmstart.errors import BadInputError
 from warmstart.history import ENV_VAR, resolve_path
 from warmstart.service.client import SERVER_ENV, TOKEN_ENV, connect, query_fingerprint
 from warmstart.service.security import (
@@ -28,20 +27,6 @@ from warmstart.service.security import (
 
 READ_TOKEN_ENV = "WARMSTART_READ_TOKEN"
 TASK = click.Choice(["classification", "regression"])
-
-
-def _one_line_errors(func):
-    """Library errors as one ``error: ...`` line and the error's exit code."""
-
-    @functools.wraps(func)
-    def wrapper(*args, **kwargs):
-        try:
-            return func(*args, **kwargs)
-        except WarmstartError as exc:
-            click.echo(f"error: {exc}", err=True)
-            sys.exit(exc.exit_code)
-
-    return wrapper
 
 
 def _history_options(func):
@@ -76,7 +61,7 @@ def _tokens(token_file: Path | None, read_token_file_: Path | None) -> tuple:
               type=click.IntRange(min=1024), help="Larger request bodies are refused.")
 @click.option("--log-level", default="warning", show_default=True,
               type=click.Choice(["critical", "error", "warning", "info", "debug"]))
-@_one_line_errors
+@handle_errors
 def serve_cmd(kb_path, host, port, token_file, read_token_file, max_body_bytes,
               log_level) -> None:
     """Serve the history over HTTP: a JSON API and a read-only web view at /."""
@@ -110,8 +95,8 @@ def serve_cmd(kb_path, host, port, token_file, read_token_file, max_body_bytes,
 @click.option("--fingerprint", "fingerprint_file", type=click.Path(path_type=Path),
               default=None, help="Place this fingerprint JSON instead of DATA.")
 @_history_options
-@click.option("--json", "as_json", is_flag=True, help="Print JSON.")
-@_one_line_errors
+@json_option
+@handle_errors
 def map_cmd(out, data, target, task, fingerprint_file, kb_path, server, as_json) -> None:
     """Draw the history's datasets by meta-feature distance; optionally place DATA."""
     from warmstart.service.maps import map as draw_map
@@ -151,8 +136,8 @@ def map_cmd(out, data, target, task, fingerprint_file, kb_path, server, as_json)
 @click.option("-k", default=5, show_default=True, type=click.IntRange(min=1),
               help="Neighbours shown and suggestions per family.")
 @_history_options
-@click.option("--json", "as_json", is_flag=True, help="Print JSON.")
-@_one_line_errors
+@json_option
+@handle_errors
 def report_cmd(data, target, task, fingerprint_file, out, family_names, k, kb_path, server,
                as_json) -> None:
     """Write one self-contained HTML report of DATA against the history."""

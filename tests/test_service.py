@@ -343,7 +343,7 @@ def test_read_token(locked, query):
                                              trials=[{"n_neighbors": 5, "score": 0.7}])
 
 
-def test_serve_refuses_unsafe_tokens(tmp_path, history):
+def test_serve_refuses_unsafe_tokens(tmp_path, history, server):
     runner = CliRunner()
     loose = tmp_path / "loose"
     loose.write_text(TOKEN)
@@ -355,6 +355,9 @@ def test_serve_refuses_unsafe_tokens(tmp_path, history):
     assert res.exit_code == 2 and "shorter than" in res.output
     res = runner.invoke(serve_cmd, ["--kb", str(tmp_path / "none"), "--port", "0"])
     assert res.exit_code == 2 and "not a warmstart history" in res.output
+    taken = server.rsplit(":", 1)[1]  # the running server's port
+    res = runner.invoke(serve_cmd, ["--kb", str(history), "--port", taken])
+    assert res.exit_code == 2 and "cannot listen on 127.0.0.1:" in res.output
     # reference: common practice (loopback 127.0.0.0/8 and ::1 are this machine only)
     assert exposure_warnings("127.0.0.1", None, None) == []
     assert exposure_warnings("::1", None, None) == []
@@ -403,6 +406,23 @@ def test_map_uses_the_distances_of_similar(query):
     few = maps.task_map("classification", {i: fps[i] for i in tm.ids}, landmarks=6)
     assert few.landmark_rows.shape[0] == 6 and np.isfinite(few.coords).all()
     assert len(few.ids) == len(tm.ids)
+
+
+def test_commands_give_the_same_json_both_ways(server, history, tmp_path):
+    runner = CliRunner()
+    outs = []
+    for where in (["--kb", str(history)], ["--server", server]):
+        res = runner.invoke(map_cmd, ["--out", str(tmp_path / "m.svg"), str(EXAMPLE),
+                                      "--target", "churned", "--json", *where])
+        assert res.exit_code == 0, res.output
+        outs.append(json.loads(res.output))
+        res = runner.invoke(report_cmd, [str(EXAMPLE), "--target", "churned", "-k", "2",
+                                         "--family", "knn", "--family", "svm_rbf", "--out",
+                                         str(tmp_path / "r.html"), "--json", *where])
+        assert res.exit_code == 0, res.output
+        outs.append({k: v for k, v in json.loads(res.output).items() if k != "bytes"})
+    assert outs[0] == outs[2] and outs[1] == outs[3]
+    assert "no classification study of family 'svm_rbf'" in outs[1]["families"]["svm_rbf"]
 
 
 def test_map_and_report_commands(server, tmp_path):
