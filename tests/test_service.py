@@ -254,6 +254,9 @@ def test_writes_without_or_with_wrong_token_are_refused(server, history, query):
         Client(server, token="y" * 32).log(fingerprint_of=query, family="knn",
                                             trials=[{"n_neighbors": 5, "score": 0.7}])
     assert err.value.exit_code == 2
+    with pytest.raises(NotAuthorisedError):
+        Client(server, token="y" * 32)._check_writable()
+    Client(server, token=TOKEN)._check_writable()  # the right token: no error
     assert dir_digest(history) == before
 
 

@@ -16,6 +16,7 @@ Routes (JSON unless said otherwise; the OpenAPI document is at ``/openapi.json``
 ``/api/backtest/{fam}``   GET    :func:`warmstart.backtest.backtest`
 ``/api/check``            GET    :meth:`KnowledgeBase.check` (no repair)
 ``/api/check/repair``     POST   check with repair (write token)
+``/api/write-access``     GET    200 when the token may write (write token)
 ``/api/map.svg``          GET    the similarity map (SVG)
 ``/api/map``              POST   the map with a fingerprint placed on it (SVG)
 ``/``, ``/datasets/{id}``,
@@ -165,6 +166,8 @@ def _api_routes(api: FastAPI) -> None:
         backtest_summary)
     api.get("/api/check", summary="Integrity check")(check)
     api.post("/api/check/repair", summary="Check and repair (write token)")(repair)
+    api.get("/api/write-access", summary="Whether this token may write (write token)")(
+        write_access)
     api.get("/api/map.svg", summary="The similarity map",
             response_class=Response)(map_picture)
     api.post("/api/map", summary="The map with a dataset placed on it",
@@ -270,6 +273,11 @@ def log_study(body: LogRequest, request: Request) -> JSONResponse:
     log.info("logged study %s (%s) for dataset %s", study.study_id, study.family,
              study.dataset_id)
     return _json(study.to_dict(), status=201)
+
+
+def write_access(request: Request) -> JSONResponse:
+    # reached only with the write token (the guard refuses anything else)
+    return _json({"writes": True, "path": str(_state(request).kb.path)})
 
 
 def _int_list(text: str, what: str) -> tuple[int, ...]:
@@ -426,9 +434,15 @@ def serve(path: str | os.PathLike, *, host: str = "127.0.0.1", port: int = 8765,
     cannot be listened on.
     """
     import socket
+    import warnings
 
     import uvicorn
 
+    # Requests run in threads, where numpy's all-NaN notices and scikit-learn's note
+    # about thread-local configuration would fill the log without telling anyone anything
+    warnings.filterwarnings("ignore", category=RuntimeWarning, module=r"numpy\.")
+    warnings.filterwarnings("ignore", message=r".*sklearn\.utils\.parallel\.delayed",
+                            category=UserWarning)
     app = create_app(path, token=token, read_token=read_token, max_body_bytes=max_body_bytes)
     family = socket.AF_INET6 if ":" in host else socket.AF_INET
     sock = socket.socket(family, socket.SOCK_STREAM)

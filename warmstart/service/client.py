@@ -225,6 +225,14 @@ class Client:
         return wire.backtest_from_dict(self.request("GET", f"/api/backtest/{family}",
                                                     params=params))
 
+    def _check_writable(self) -> None:
+        """Raise unless this client's token may write (as the directory checks permissions
+        before a long run that ends in a log); writes nothing."""
+        if not self.token:
+            raise NotAuthorisedError(f"writing to {self.url} needs a token: set "
+                                     f"${TOKEN_ENV}")
+        self.request("GET", "/api/write-access")
+
     def _directory_only(self, what: str):
         raise BadInputError(f"{what} works on the history's directory, not through a "
                             f"server: run it on the machine that holds the history")

@@ -32,7 +32,8 @@ MIN_TOKEN_LENGTH = 16
 DEFAULT_MAX_BODY_BYTES = 8 * 1024 * 1024
 DRAIN_FACTOR = 4
 OPEN_ROUTES = frozenset({"/health", "/openapi.json"})
-WRITE_ROUTES = frozenset({("POST", "/api/log"), ("POST", "/api/check/repair")})
+WRITE_ROUTES = frozenset({("POST", "/api/log"), ("POST", "/api/check/repair"),
+                          ("GET", "/api/write-access")})
 BODY_METHODS = frozenset({"POST", "PUT", "PATCH", "DELETE"})
 
 
