@@ -111,7 +111,8 @@ def report_html(fp: Fingerprint, label: str, history, neighbours, svg: str,
             + webview.section("Where to start tuning", "".join(parts) + (
                 '<p class="note">Starting points only: validate the tuned model on '
                 "held-out data. norm. score: 1 = best trial of its study; expected: "
-                "similarity-weighted mean over the nearest datasets.</p>"
+                "similarity-weighted mean over the nearest datasets (* = partly "
+                "predicted by surrogate models).</p>"
                 if parts else '<p class="note">the history has no study of this task</p>'))
             + webview.section("Fingerprint", webview.fingerprint_tables(fp)))
     return webview.page(f"warmstart report: {label}", body, nav=False)

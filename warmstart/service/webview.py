@@ -78,11 +78,13 @@ def fmt(value: Any) -> str:
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         return "-"
     if isinstance(value, bool):
-        return "yes" if value else "no"
+        return "true" if value else "false"
     if isinstance(value, float):
         return f"{value:.3g}" if value != 0 and not 1e-3 <= abs(value) < 1e5 else f"{value:.4g}"
     if isinstance(value, dict):
-        return escape(", ".join(f"{k}={fmt(v)}" for k, v in value.items()))
+        # None is a real value of a parameter here (max_depth=None), not a gap
+        return ", ".join(f"{escape(str(k))}={'None' if v is None else fmt(v)}"
+                         for k, v in value.items())
     if hasattr(value, "strftime"):  # a timestamp: to the minute is enough to read
         return escape(value.strftime("%Y-%m-%d %H:%M"))
     return escape(str(value))
@@ -183,7 +185,8 @@ def neighbours_table(neighbours: Sequence[Neighbour], links: bool = True) -> str
 def suggestions_table(suggestions: Sequence[Suggestion]) -> str:
     """Ranked starting configurations with where they come from."""
     rows = [[s.rank, s.source_name or "-", s.distance, s.normalised_score, s.score,
-             s.expected_normalised, s.expected_fit_seconds,
+             Raw(fmt(s.expected_normalised) + ("*" if s.predicted else "")),
+             s.expected_fit_seconds,
              Raw(fmt(s.config)) if s.config else "(estimator defaults)"] for s in suggestions]
     return table(["#", "from dataset", "distance", "norm. score", "score", "expected",
                   "est. fit s", "configuration"], rows, "rlrrrrr")
