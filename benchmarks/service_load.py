@@ -44,7 +44,7 @@ from warmstart import KnowledgeBase, fingerprint  # noqa: E402
 from warmstart.families import get_family  # noqa: E402
 from warmstart.service import Client, maps  # noqa: E402
 
-EXAMPLE = ROOT / "examples" / "tallowmere_loyalty_churn.csv"
+EXAMPLE = ROOT / "examples" / "quillmarsh_loyalty_churn.csv"
 FAMILIES = ["hist_gradient_boosting", "random_forest", "knn", "linear"]
 TOKEN = "bench-token-" + "9f8e7d6c" * 3
 MIX = {"suggest": 0.35, "similar": 0.35, "log": 0.30}

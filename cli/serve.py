@@ -13,7 +13,7 @@ from pathlib import Path
 
 import click
 
-from cli.main import handle_errors, json_option
+from cli.common import TASK, data_options, dataset_input, handle_errors, json_option
 from cli.output import emit_json, fmt, table
 from warmstart.errors import BadInputError
 from warmstart.history import ENV_VAR, resolve_path
@@ -26,7 +26,6 @@ from warmstart.service.security import (
 )
 
 READ_TOKEN_ENV = "WARMSTART_READ_TOKEN"
-TASK = click.Choice(["classification", "regression"])
 
 
 def _history_options(func):

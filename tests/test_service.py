@@ -38,8 +38,8 @@ from warmstart.service.security import exposure_warnings
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "knowledge_base"
-EXAMPLE = ROOT / "examples" / "tallowmere_loyalty_churn.csv"
-TRIALS = ROOT / "examples" / "tallowmere_loyalty_churn_trials.csv"
+EXAMPLE = ROOT / "examples" / "quillmarsh_loyalty_churn.csv"
+TRIALS = ROOT / "examples" / "quillmarsh_loyalty_churn_trials.csv"
 ARTIFACTS = ROOT / "tests" / "artifacts"
 CHROMIUM = shutil.which("chromium") or ("/usr/bin/chromium" if Path("/usr/bin/chromium")
                                         .exists() else None)
