@@ -13,7 +13,7 @@ from pathlib import Path
 
 import click
 
-from cli.common import TASK, data_options, dataset_input, handle_errors, json_option
+from cli.common import data_options, dataset_input, handle_errors, json_option
 from cli.output import emit_json, fmt, table
 from warmstart.errors import BadInputError
 from warmstart.history import ENV_VAR, resolve_path
@@ -88,11 +88,7 @@ def serve_cmd(kb_path, host, port, token_file, read_token_file, max_body_bytes,
 @click.command("map")
 @click.option("--out", "-o", required=True, type=click.Path(path_type=Path),
               help="Picture to write: .svg or .png.")
-@click.argument("data", required=False, type=click.Path(path_type=Path))
-@click.option("--target", "-t", default=None, help="Target column of DATA (to place it).")
-@click.option("--task", type=TASK, default=None, help="Override the inferred task.")
-@click.option("--fingerprint", "fingerprint_file", type=click.Path(path_type=Path),
-              default=None, help="Place this fingerprint JSON instead of DATA.")
+@data_options
 @_history_options
 @json_option
 @handle_errors
@@ -102,11 +98,9 @@ def map_cmd(out, data, target, task, fingerprint_file, kb_path, server, as_json)
 
     history = connect(kb_path, server)
     query = None
-    if data is not None or fingerprint_file is not None:
-        if fingerprint_file is None and target is None:
-            raise BadInputError("missing --target COLUMN (to place DATA on the map)")
-        query = query_fingerprint(data if fingerprint_file is None else None, target, task,
-                                  fingerprint_file)
+    if data is not None or fingerprint_file is not None:  # a dataset to place
+        query = query_fingerprint(dataset_input(data, target, fingerprint_file), target,
+                                  task, fingerprint_file)
     label = Path(fingerprint_file or data).stem if query is not None else "query"
     info = draw_map(history, out, query=query, query_label=label)
     if as_json:
@@ -122,11 +116,7 @@ def map_cmd(out, data, target, task, fingerprint_file, kb_path, server, as_json)
 
 # -- report ------------------------------------------------------------------------------------
 @click.command("report")
-@click.argument("data", required=False, type=click.Path(path_type=Path))
-@click.option("--target", "-t", default=None, help="Target column.")
-@click.option("--task", type=TASK, default=None, help="Override the inferred task.")
-@click.option("--fingerprint", "fingerprint_file", type=click.Path(path_type=Path),
-              default=None, help="Use this fingerprint JSON instead of DATA.")
+@data_options
 @click.option("--out", "-o", required=True, type=click.Path(path_type=Path),
               help="HTML file to write.")
 @click.option("--family", "-f", "family_names", multiple=True,
@@ -142,12 +132,7 @@ def report_cmd(data, target, task, fingerprint_file, out, family_names, k, kb_pa
     """Write one self-contained HTML report of DATA against the history."""
     from warmstart.service.report import report
 
-    if fingerprint_file is None:
-        if data is None:
-            raise BadInputError("missing DATA (or --fingerprint FILE)")
-        if target is None:
-            raise BadInputError("missing --target COLUMN")
-    info = report(data if fingerprint_file is None else None, target, out,
+    info = report(dataset_input(data, target, fingerprint_file), target, out,
                   history=connect(kb_path, server), families=list(family_names) or None,
                   k=k, task=task, fingerprint_of=fingerprint_file)
     if as_json:
