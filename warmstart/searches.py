@@ -200,10 +200,30 @@ def _row_configs(df: pd.DataFrame) -> list[dict[str, Any]]:
         for col, value in row.items():
             if isinstance(value, str):
                 value = parse_literal(value)
-            # an empty cell is None or "not set": left as NaN for the trials check
-            config[str(col)[len(PARAM_PREFIX):]] = value
+            # scikit-learn leaves None and "not set" alike empty in param_* columns
+            blank = value is None or (isinstance(value, float) and math.isnan(value))
+            config[str(col)[len(PARAM_PREFIX):]] = _EMPTY if blank else value
         out.append(config)
     return out
+
+
+_EMPTY = object()  # an empty param_* cell: None, or not set
+
+
+def _resolve_empty(rows: list[dict[str, Any]], defaults: Mapping[str, Any]) -> None:
+    """Read empty ``param_*`` cells as "not set" (NaN), which the trials check turns
+    into None where the default is None; where it is not, the cell is ambiguous."""
+    unclear = sorted({k for r in rows for k, v in r.items()
+                      if v is _EMPTY and defaults.get(k) is not None})
+    if unclear:
+        raise BadInputError(
+            f"these search results have no readable 'params' column, and empty cells in "
+            f"{', '.join(PARAM_PREFIX + k for k in unclear)} may be None or not set (the "
+            "defaults differ); save the table with its 'params' column")
+    for r in rows:
+        for k, v in r.items():
+            if v is _EMPTY:
+                r[k] = math.nan
 
 
 def _last_rounds(df: pd.DataFrame, configs: list[dict[str, Any]],
@@ -242,7 +262,7 @@ def _number(value: Any) -> float | None:
     return None
 
 
-def search_table_trials(df: pd.DataFrame, metric: str, keywords: Collection[str], *,
+def search_table_trials(df: pd.DataFrame, metric: str, keywords: Mapping[str, Any], *,
                         step: str | None = None, resource: str | None = None,
                         settings: Mapping[str, Any] | None = None) -> pd.DataFrame:
     """Turn a ``cv_results_`` table into a trials table.
@@ -253,8 +273,8 @@ def search_table_trials(df: pd.DataFrame, metric: str, keywords: Collection[str]
         ``pd.DataFrame(search.cv_results_)``, possibly read back from a file.
     metric : str
         Picks ``mean_test_<metric>`` when the table holds several metrics.
-    keywords : collection of str
-        The model's constructor keywords (see :func:`model_keywords`).
+    keywords : mapping
+        The model's constructor keywords and their defaults (``get_params()``).
     step, resource : str, optional
         The model's pipeline step path and a halving search's resource, when known.
     settings : mapping, optional
@@ -277,6 +297,7 @@ def search_table_trials(df: pd.DataFrame, metric: str, keywords: Collection[str]
                             f"{', '.join(n for n in rename if n != rename[n])}")
     rows = [{**(settings or {}), **{rename[k]: v for k, v in c.items()}}
             for c, kept in zip(configs, keep) if kept]
+    _resolve_empty(rows, keywords)
     columns = list(dict.fromkeys([*(settings or {}), *rename.values()]))
     out = pd.DataFrame({k: pd.Series([r.get(k, math.nan) for r in rows], dtype=object)
                         for k in columns}, index=range(len(rows)))

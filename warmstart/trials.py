@@ -72,6 +72,9 @@ def load_trials(trials: TrialsInput) -> pd.DataFrame:
 def validate_trials(trials: TrialsInput, space: SearchSpace, metric: Metric) -> list[Trial]:
     """Check every trial against the family's space and the metric.
 
+    The space-based check that logging used before :func:`check_trials`, which checks
+    with the estimator instead; kept until every caller has moved.
+
     Empty cells (NaN/None) in a parameter column mean "unset" (the estimator's default,
     or ``None`` where the parameter allows it). Raises :class:`BadInputError` naming the
     first problem and its row (1-based, as a spreadsheet shows it).
@@ -351,8 +354,9 @@ class _Problems:
         return len(self._rows)
 
     def lines(self) -> list[str]:
+        """One line per problem: table-wide ones first, then by the first row they are on."""
         out = []
-        for text, rows in self._rows.items():
+        for text, rows in sorted(self._rows.items(), key=lambda kv: kv[1][:1] or [0]):
             if not rows:
                 out.append(text)
             elif len(rows) == 1:
@@ -483,7 +487,7 @@ def _outcomes(df: pd.DataFrame, metric: Metric, rules: EstimatorRules, problems:
     if "score" not in df.columns:
         problems.add(_missing_score(df, metric, rules))
     else:
-        for row in np.flatnonzero(ok & np.isnan(score)):
+        for row in np.flatnonzero(ok & df["score"].isna().to_numpy()):
             problems.add("an 'ok' trial needs a finite numeric score", row + 1)
         _check_range(score, ok & np.isfinite(score), metric, problems)
     fit = _numbers(df, "fit_seconds", problems)
