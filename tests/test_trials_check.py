@@ -66,8 +66,8 @@ def test_scikit_learn_defaults_and_wider_ranges_are_stored_as_given():
         assert configs([{**config, "score": 0.5}], family, task, metric) == [config]
 
 
-PROBES = [-1, 2, 10**9, 0.5, 1.5, 1234567.25, -0.25, "sqrt", "scale", "auto", "balanced", "log_loss",
-          "squared_error", "uniform", None, True, False]
+PROBES = [-1, 2, 10**9, 0.5, 1.5, 1234567.25, -0.25, "sqrt", "scale", "auto", "balanced",
+          "log_loss", "squared_error", "uniform", None, True, False]
 
 
 @pytest.mark.parametrize("family", sorted(FAMILIES))
