@@ -200,6 +200,7 @@ def test_missing_score_lists_columns_and_likely_mapping():
     assert "columns found: n_estimators, val_accuracy, train_secs" in message
     assert "'val_accuracy' -> 'score'" in message
     assert "'train_secs' -> 'fit_seconds'" in message
+    assert "\n" not in message  # the columns it names are not also unknown parameters
 
 
 def test_percentage_scores_suggest_dividing_by_100():
@@ -207,8 +208,9 @@ def test_percentage_scores_suggest_dividing_by_100():
     with pytest.raises(BadInputError) as err:
         check_trials(table, RF, "classification", ACC)
     # one line, not one per row (accuracy lies in [0, 1], reference: sklearn.metrics)
-    assert str(err.value) == ("the scores look like percentages (all 3 lie between 1 and "
-                              "100, but accuracy lies in [0, 1]): divide them by 100")
+    assert str(err.value) == ("the scores are outside the range [0, 1] of accuracy and look "
+                              "like percentages (all 3 lie between 1 and 100): divide them "
+                              "by 100")
     assert [t.score for t in check_trials(table.assign(score=table.score / 100), RF,
                                           "classification", ACC)] == [0.85, 0.915, 0.7825]
 

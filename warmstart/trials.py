@@ -415,8 +415,13 @@ def check_trials(trials: TrialsInput, family: Family, task: str,
     if df.columns.duplicated().any():
         raise BadInputError("the trials table has duplicate column names")
     problems = _Problems()
-    configs = _configs(df, rules, problems)
-    outcomes = _outcomes(df, metric, rules, problems)
+    mapped: list[str] = []
+    if "score" not in df.columns:
+        why, mapped = _missing_score(df, metric, rules)
+        problems.add(why)
+    # the columns named in that advice are not also reported as unknown parameters
+    configs = _configs(df.drop(columns=mapped), rules, problems)
+    outcomes = _outcomes(df, metric, problems)
     problems.raise_if_any()
     return [Trial(config, *outcome) for config, outcome in zip(configs, outcomes)]
 
@@ -470,7 +475,7 @@ def _column(series: pd.Series, name: str, rules: EstimatorRules, problems: _Prob
     return out.tolist()
 
 
-def _outcomes(df: pd.DataFrame, metric: Metric, rules: EstimatorRules, problems: _Problems
+def _outcomes(df: pd.DataFrame, metric: Metric, problems: _Problems
               ) -> list[tuple[float | None, float | None, str, str | None]]:
     """Each row's ``(score, fit_seconds, status, error)``, problems added to ``problems``."""
     n = df.shape[0]
@@ -484,9 +489,7 @@ def _outcomes(df: pd.DataFrame, metric: Metric, rules: EstimatorRules, problems:
             status[row] = FAILED
     ok = status == OK
     score = _numbers(df, "score", problems)
-    if "score" not in df.columns:
-        problems.add(_missing_score(df, metric, rules))
-    else:
+    if "score" in df.columns:
         for row in np.flatnonzero(ok & df["score"].isna().to_numpy()):
             problems.add("an 'ok' trial needs a finite numeric score", row + 1)
         _check_range(score, ok & np.isfinite(score), metric, problems)
@@ -508,7 +511,7 @@ def _numbers(df: pd.DataFrame, column: str, problems: _Problems) -> np.ndarray:
         return np.full(df.shape[0], np.nan)
     series = df[column]
     if series.dtype.kind in "iuf":
-        values = series.to_numpy(dtype=float)
+        values = np.array(series.to_numpy(dtype=float))  # a copy: pandas may share memory
         cells = {int(r): values[r] for r in np.flatnonzero(np.isinf(values))}
     else:
         values = np.full(df.shape[0], np.nan)
@@ -526,30 +529,34 @@ def _check_range(score: np.ndarray, ok: np.ndarray, metric: Metric,
     given = score[ok]
     if (metric.low, metric.high) == (0.0, 1.0) and given.size and given.min() >= 1 \
             and given.max() <= 100 and given.max() > 1:
-        problems.add(f"the scores look like percentages (all {given.size} lie between 1 and "
-                     f"100, but {metric.name} lies in [0, 1]): divide them by 100")
+        problems.add(f"the scores are outside the range [0, 1] of {metric.name} and look "
+                     f"like percentages (all {given.size} lie between 1 and 100): divide "
+                     "them by 100")
         return
     for row in np.flatnonzero(ok & ((score < metric.low) | (score > metric.high))):
         problems.add(metric.check(float(score[row])), row + 1)
 
 
-def _missing_score(df: pd.DataFrame, metric: Metric, rules: EstimatorRules) -> str:
-    """Say which columns were found and which likely hold the score and the fit time."""
+def _missing_score(df: pd.DataFrame, metric: Metric, rules: EstimatorRules
+                   ) -> tuple[str, list[str]]:
+    """Say which columns were found and which likely hold the score and the fit time;
+    return that and the columns the advice names."""
     found = [str(c) for c in df.columns]
     free = [c for c in found if c not in rules.defaults and c not in RESERVED
             and pd.api.types.is_numeric_dtype(df[c])]
     scores = [c for c in free if _mentions(c, (*_SCORE_WORDS, metric.name.lower()))]
     times = [c for c in free if _mentions(c, _TIME_WORDS) and c not in scores]
-    renames = []
+    renames, named = [], list(scores)
     if scores:
         alt = f" (or {', '.join(map(repr, scores[1:]))})" if len(scores) > 1 else ""
         renames.append(f"{scores[0]!r}{alt} -> 'score'")
     if times and "fit_seconds" not in found:
         renames.append(f"{times[0]!r} -> 'fit_seconds'")
+        named.append(times[0])
     advice = (f"likely mapping: {', '.join(renames)}" if scores else
               "rename the column holding each trial's score to 'score'")
     return (f"the trials table has no 'score' column (columns found: {', '.join(found)}); "
-            f"{advice}")
+            f"{advice}"), named
 
 
 def _mentions(name: str, words: Sequence[str]) -> bool:
