@@ -297,6 +297,8 @@ def test_model_keywords_infers_the_model_step():
         "m__C": "C", "m__gamma": "gamma"}
     with pytest.raises(BadInputError, match="'pca__n_components'"):
         model_keywords(["svc__C", "pca__n_components"], keywords)
+    with pytest.raises(BadInputError, match="replaced the model step 'svc' itself"):
+        model_keywords(["svc", "svc__C"], keywords, step="svc")
     with pytest.raises(BadInputError, match="cannot tell which pipeline step"):
         model_keywords(["a__C", "b__gamma"], keywords)
 

@@ -133,8 +133,9 @@ def test_empty_cells_follow_the_estimators_default():
         {"max_depth": None, "n_estimators": 100, "bootstrap": True},
         {"max_depth": 4, "max_features": 0.5, "bootstrap": False},
     ]
-    # an explicit None (JSON null) is the value None, default or not
-    assert configs([{"max_features": None, "score": 0.9}]) == [{"max_features": None}]
+    # an explicit None is the value None, default or not; a missing key is not set
+    assert configs([{"max_features": None, "score": 0.9}, {"max_features": 0.5, "score": 0.8},
+                    {"score": 0.7}]) == [{"max_features": None}, {"max_features": 0.5}, {}]
 
 
 def test_whole_numbers_become_floats_only_where_integers_are_not_allowed():

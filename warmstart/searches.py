@@ -158,6 +158,10 @@ def model_keywords(names: Collection[str], keywords: Collection[str],
                 "cannot tell which pipeline step is the model: parameters name the steps "
                 f"{', '.join(repr(s) for s in steps if s)}; keep only the model's columns")
     others = [n for n, (p, _, _) in split.items() if p != step]
+    if step and step in others:
+        raise BadInputError(
+            f"the search replaced the model step {step!r} itself (parameter {step!r}); log "
+            "the trials of each model as a separate study")
     if others:
         where = f"the model's step {step!r}" if step else "the model"
         raise BadInputError(

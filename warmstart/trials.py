@@ -66,7 +66,8 @@ def load_trials(trials: TrialsInput) -> pd.DataFrame:
     rows = list(trials)
     if not all(isinstance(r, Mapping) for r in rows):
         raise BadInputError("trials must be a table or a list of objects")
-    return pd.DataFrame(rows)
+    # object columns keep an explicit None apart from a missing key (NaN)
+    return pd.DataFrame(rows, dtype=object)
 
 
 def validate_trials(trials: TrialsInput, space: SearchSpace, metric: Metric) -> list[Trial]:
