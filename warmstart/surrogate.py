@@ -98,15 +98,9 @@ def fit_surrogate(configs: Sequence[Mapping[str, Any]], normalised: np.ndarray,
         model = RandomForestRegressor(n_estimators=N_TREES, min_samples_leaf=2,
                                       random_state=seed, n_jobs=1)
     else:
-        from sklearn.gaussian_process import GaussianProcessRegressor
-        from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
+        from warmstart.gp import gaussian_process
 
-        kernel = (ConstantKernel(1.0, (1e-2, 1e2))
-                  * Matern(length_scale=np.ones(X.shape[1]), length_scale_bounds=(1e-2, 1e2),
-                           nu=2.5)
-                  + WhiteKernel(1e-2, (1e-6, 1.0)))
-        model = GaussianProcessRegressor(kernel, normalize_y=True, random_state=seed,
-                                         n_restarts_optimizer=0)
+        model = gaussian_process(X.shape[1], seed, length_scale=1.0, restarts=0)
     import warnings
 
     with warnings.catch_warnings():

@@ -6,6 +6,7 @@ Register a new strategy by adding an instance to ``_ALL`` below (see DEVELOPERS.
 from __future__ import annotations
 
 from warmstart.errors import BadInputError
+from warmstart.spaces import user_space
 from warmstart.strategies.anchored import AnchoredPortfolio
 from warmstart.strategies.base import (
     Strategy,
@@ -14,7 +15,6 @@ from warmstart.strategies.base import (
     canonical_key,
     normalise_scores,
     prepare_trials,
-    user_space,
 )
 from warmstart.strategies.baselines import LibraryDefaults, RandomConfigs
 from warmstart.strategies.hedged import HedgedPortfolio

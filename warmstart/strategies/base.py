@@ -15,7 +15,6 @@ count as the same configuration.
 from __future__ import annotations
 
 import json
-import os
 from dataclasses import dataclass, field
 from typing import Any, Protocol
 
@@ -25,7 +24,6 @@ import pandas as pd
 from warmstart.errors import BadInputError
 from warmstart.families.base import Family
 from warmstart.fingerprint import Fingerprint
-from warmstart.io import read_json_file
 from warmstart.metrics import MINIMIZE
 from warmstart.similarity import Neighbour
 from warmstart.spaces import SearchSpace, config_key
@@ -332,19 +330,6 @@ def _set_trials(self: SuggestContext, trials: pd.DataFrame) -> None:
 
 
 SuggestContext.trials = property(_get_trials, _set_trials)  # type: ignore[assignment]
-
-
-def user_space(spec: Any, family: Family, task: str) -> SearchSpace:
-    """A user restriction of ``family``'s space for ``task``.
-
-    ``spec`` is a :class:`SearchSpace` (returned as is), a JSON list as accepted by
-    :meth:`SearchSpace.from_dict`, or the path of a JSON file holding one.
-    """
-    if isinstance(spec, SearchSpace):
-        return spec
-    if isinstance(spec, (str, os.PathLike)):
-        spec = read_json_file(spec, "search-space")
-    return SearchSpace.from_dict(spec, within=family.space(task))
 
 
 def canonical_key(space: SearchSpace, config: dict[str, Any]) -> str:

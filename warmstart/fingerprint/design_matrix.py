@@ -1,4 +1,4 @@
-"""Shared preparation of the sample for the model-based groups.
+"""The model design matrix of the sample, for the sample-based (model) meta-features.
 
 ``design(p)`` is the feature matrix landmarks and complexity measures see: numeric and
 boolean columns imputed by their median and standardised (zero mean, unit variance; a
