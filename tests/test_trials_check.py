@@ -27,7 +27,7 @@ from warmstart.trials import MAX_PROBLEM_LINES, check_trials, estimator_rules, v
 ACC = resolve_metric("accuracy")
 R2 = resolve_metric("r2")
 RF, HGB, SVM = (get_family(n) for n in ("random_forest", "hist_gradient_boosting", "svm_rbf"))
-EXAMPLE_TRIALS = Path(__file__).parent.parent / "examples/tallowmere_loyalty_churn_trials.csv"
+EXAMPLE_TRIALS = Path(__file__).parent.parent / "examples/quillmarsh_loyalty_churn_trials.csv"
 
 
 def configs(table, family=RF, task="classification", metric=ACC):
