@@ -5,6 +5,7 @@ warnings instead (exit 0).
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import shutil
@@ -98,7 +99,8 @@ CASES = [  # id, builder(w) -> CLI args, substring the error must contain
      lambda w: w.log(w.write("r.parquet", np.random.default_rng(0).bytes(512))),
      "not a Parquet file"),
     ("data file missing", lambda w: w.log(w.root / "absent.csv"), "file not found"),
-    ("data path is a directory", lambda w: w.log(w.root), "expected a file"),
+    ("data path is a directory of other files", lambda w: w.log(w.root),
+     "a data directory holds only Parquet files"),
     ("ragged CSV rows", lambda w: w.log(w.write("g.csv", "a,target\n1,0\n2,1,7,8\n3,0\n")),
      "could not read"),
     # the trials table
@@ -118,11 +120,11 @@ CASES = [  # id, builder(w) -> CLI args, substring the error must contain
     ("parameter the family does not have",
      lambda w: w.log_trials("n_neighbors,score\n5,0.9\n"), "does not declare"),
     ("value of the wrong type", lambda w: w.log_trials("n_estimators,score\nlots,0.9\n"),
-     "'n_estimators' must be a number"),
-    ("value outside its bounds", lambda w: w.log_trials("n_estimators,score\n1,0.9\n"),
-     "outside [10, 1000]"),
+     "The 'n_estimators' parameter of RandomForestClassifier must be an int"),
+    ("value outside its bounds", lambda w: w.log_trials("n_estimators,score\n0,0.9\n"),
+     "must be an int in the range [1, inf). Got 0 instead"),
     ("categorical value not declared",
-     lambda w: w.log_trials("criterion,score\nfuzzy,0.9\n"), "must be one of"),
+     lambda w: w.log_trials("criterion,score\nfuzzy,0.9\n"), "must be a str among"),
     ("unknown family", lambda w: w.log(None, None, family="deep_forest"),
      "unknown model family 'deep_forest'"),
     ("malformed JSON-lines trials",
@@ -185,8 +187,25 @@ def test_malformed_input_is_refused_and_nothing_written(tmp_path, template, buil
     assert dir_digest(w.kb) == before
 
 
-def test_at_least_thirty_malformed_inputs():
-    assert len(CASES) >= 30
+def test_at_least_thirty_distinct_malformed_inputs(tmp_path, template):
+    # Each case is a different input, not another name for one already listed: its
+    # arguments, with files replaced by their bytes and directories by their place,
+    # together with the state of its history (reference: common practice).
+    inputs = set()
+    for i, (_name, build, _expected) in enumerate(CASES):
+        w = Work(tmp_path / f"w{i}", template)
+        args = build(w)
+
+        def content(arg: str, w=w) -> str:
+            path = Path(arg)
+            if not path.is_relative_to(w.root):
+                return arg
+            if path.is_file():
+                return "file " + hashlib.sha256(path.read_bytes()).hexdigest()
+            return ("dir " if path.is_dir() else "absent ") + str(path.relative_to(w.root))
+
+        inputs.add((tuple(map(content, args)), tuple(sorted(dir_digest(w.kb).items()))))
+    assert len(inputs) == len(CASES) >= 30
 
 
 def test_read_only_history_is_refused(tmp_path, template, monkeypatch):

@@ -13,6 +13,7 @@ from click.testing import CliRunner
 from cli.main import main
 from warmstart import BadInputError, fingerprint
 from warmstart.fingerprint import profile_table
+from warmstart.fingerprint.profile import column_roles
 
 N = 200
 
@@ -36,20 +37,22 @@ def _all_finite_or_nan(fp) -> bool:
                for v in fp.values.values())
 
 
-@pytest.mark.parametrize("column, values, text", [
-    ("customer_id", np.arange(5000, 5000 + N), "identifier"),
-    ("order_ref", [f"ord-{i:04d}" for i in range(N)], "identifier"),
-    ("shuffled_id", np.random.default_rng(1).permutation(N) * 7 + 3, "identifier"),
-    ("always_seven", np.full(N, 7.0), "constant"),
-    ("always_text", ["same"] * N, "constant"),
-    ("nothing", np.full(N, np.nan), "all-missing"),
-    ("nothing_text", pd.Series([None] * N, dtype=object), "all-missing"),
+@pytest.mark.parametrize("column, values, text, role", [
+    ("customer_id", np.arange(5000, 5000 + N), "identifier", "identifier"),
+    ("order_ref", [f"ord-{i:04d}" for i in range(N)], "identifier", "identifier"),
+    ("shuffled_id", np.random.default_rng(1).permutation(N) * 7 + 3, "identifier",
+     "identifier"),
+    ("always_seven", np.full(N, 7.0), "constant", "constant"),
+    ("always_text", ["same"] * N, "constant", "constant"),
+    ("nothing", np.full(N, np.nan), "all-missing", "empty"),
+    ("nothing_text", pd.Series([None] * N, dtype=object), "all-missing", "empty"),
 ])
-def test_dropped_columns_are_reported(column, values, text):
+def test_dropped_columns_are_reported(column, values, text, role):
     df = _base()
     df[column] = values
     fp = fingerprint(df, target="churned")
     assert column in _warning(fp, text)
+    assert column_roles(df, "churned")[column] == role
     assert fp.values["dropped_column_fraction"] == pytest.approx(1 / 4)
     assert fp.values["columns"] == 4 and _all_finite_or_nan(fp)
 
@@ -91,10 +94,12 @@ def test_numbers_stored_as_text_are_parsed():
     fp = fingerprint(df, target="churned")
     assert "price (5)" in _warning(fp, "numbers stored as text")
     assert fp.values["numeric_column_fraction"] == pytest.approx(3 / 4)
+    assert column_roles(df, "churned")["price"] == "numeric_text"
     # codes stored as text on purpose (every value numeric, with leading zeros) stay text
     df = _base()
     df["zip"] = [f"{v:05d}" for v in np.random.default_rng(3).integers(0, 40, N)]
     assert fingerprint(df, target="churned").values["categorical_column_fraction"] == 0.5
+    assert column_roles(df, "churned")["zip"] == "categorical"
 
 
 def test_dates_are_counted_not_used():
@@ -105,6 +110,8 @@ def test_dates_are_counted_not_used():
     w = _warning(fp, "date/time")
     assert "signup" in w and "seen_at" in w
     assert fp.values["datetime_column_fraction"] == pytest.approx(2 / 5)
+    roles = column_roles(df, "churned")
+    assert roles["signup"] == roles["seen_at"] == "date"
 
 
 def test_booleans_of_every_spelling():
@@ -115,6 +122,8 @@ def test_booleans_of_every_spelling():
     df["has_card"] = rng.integers(0, 2, N)
     fp = fingerprint(df, target="churned")
     assert fp.values["boolean_column_fraction"] == pytest.approx(3 / 6)
+    roles = column_roles(df, "churned")
+    assert [roles[c] for c in ("member", "opted_in", "has_card")] == ["boolean"] * 3
 
 
 def test_high_cardinality_strings():
@@ -161,6 +170,10 @@ def test_everything_dirty_at_once_through_parquet(tmp_path):
     df.to_parquet(path)
     fp = fingerprint(path, target="churned")
     assert len(fp.warnings) >= 5 and _all_finite_or_nan(fp)
+    # the frame's roles are the roles the profile of its Parquet file used
+    p, roles = profile_table(path, target="churned"), column_roles(df, "churned")
+    assert p.numeric_names == [c for c, r in roles.items() if r in ("numeric", "boolean")]
+    assert p.categorical_names == [c for c, r in roles.items() if r == "categorical"]
 
 
 # -- through the command line: exit 0, warnings on stderr and in the JSON -------------

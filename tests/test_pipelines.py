@@ -35,6 +35,11 @@ def messy(n: int = 120) -> pd.DataFrame:
     df["mixed"] = [1, "a", None, 2.5] * (n // 4)
     df["colour"] = pd.Categorical(rng.choice(["red", "green", "blue"], n))
     df["infinite"] = np.where(rng.random(n) < 0.1, np.inf, rng.normal(size=n))
+    df["answer"] = pd.Series(rng.choice(["Yes", "no", None], n), dtype=object)
+    weight = rng.normal(60, 9, n).round(1).astype(str).astype(object)
+    weight[::25] = "unknown"  # 96 % numbers: numbers stored as text
+    df["weight_text"] = weight
+    df["visit_day"] = pd.date_range("2024-01-01", periods=n, freq="D").strftime("%d/%m/%Y")
     df["y"] = iris.target.iloc[:n].to_numpy()
     return df
 
@@ -43,9 +48,29 @@ def test_split_columns_types():
     X = messy().drop(columns="y")
     numeric, categorical = split_columns(X)
     names = X.columns
+    # reference: common practice -- yes/no text is a boolean, mostly-numeric text is
+    # numbers, dates (typed or as text), keys, constant and empty columns are no features
     assert [names[i] for i in numeric] == [*load_iris().feature_names, "flag",
-                                           "nullable_flag", "infinite"]
+                                           "nullable_flag", "infinite", "answer",
+                                           "weight_text"]
     assert [names[i] for i in categorical] == ["mixed", "colour"]
+
+
+def test_text_numbers_and_booleans_reach_the_model_as_numbers():
+    X = messy().drop(columns="y")
+    fam = get_family("random_forest")
+    Z = make_pipeline(fam, "classification", {}, X)[0].fit_transform(X)
+    # 2 ordinal codes, 9 numeric columns, then the missing-value indicators of the 4
+    # numeric columns with missing values (nullable_flag, infinite, answer, weight_text)
+    assert Z.shape == (len(X), 2 + 9 + 4)
+    answer, weight = Z[:, 2 + 7], Z[:, 2 + 8]
+    given = X["answer"].notna().to_numpy()
+    # reference: common practice -- yes as 1, no as 0; Python's float() for the numbers
+    np.testing.assert_array_equal(answer[given], (X["answer"][given] == "Yes").astype(float))
+    typed = (X["weight_text"] != "unknown").to_numpy()
+    np.testing.assert_array_equal(weight[typed], X["weight_text"][typed].map(float))
+    # the rest is median-imputed (sklearn SimpleImputer, strategy="median")
+    assert np.all(weight[~typed] == np.median(weight[typed]))
 
 
 @pytest.mark.parametrize("name", list(FAMILIES))

@@ -12,6 +12,8 @@ continuous optimum ever needs rounding back.
 
 Scores are "greater is better" (scikit-learn's scorer convention). Failed trials take
 the worst score observed, which steers the search away from where estimators raise.
+
+This is the ``"gp-ei"`` search of :func:`warmstart.tune.tune` (``tune --search gp-ei``).
 """
 
 from __future__ import annotations
@@ -25,9 +27,9 @@ import numpy as np
 from scipy.stats import norm
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.gaussian_process import GaussianProcessRegressor
-from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 from threadpoolctl import threadpool_limits
 
+from warmstart.gp import gaussian_process
 from warmstart.spaces import BOOL, CATEGORICAL, Param, SearchSpace, config_key
 
 
@@ -115,12 +117,7 @@ def make_surrogate(width: int, seed: int) -> GaussianProcessRegressor:
     [0.01, 100] of that unit; targets are standardised (``normalize_y``), so the noise
     level is a fraction of the scores' variance.
     """
-    kernel = (ConstantKernel(1.0, (1e-2, 1e2))
-              * Matern(length_scale=np.full(width, 0.5), length_scale_bounds=(1e-2, 1e2),
-                       nu=2.5)
-              + WhiteKernel(1e-2, (1e-6, 1.0)))
-    return GaussianProcessRegressor(kernel=kernel, normalize_y=True, n_restarts_optimizer=2,
-                                    random_state=seed)
+    return gaussian_process(width, seed, length_scale=0.5, restarts=2)
 
 
 class BayesianOptimizer:

@@ -1,26 +1,29 @@
 """Preprocessing + estimator pipelines for the model families, for any tabular frame.
 
-Every family gets the same column typing and a front end adapted to what its model needs:
+Columns are typed by :func:`warmstart.fingerprint.profile.column_roles`, the rules the
+fingerprint uses, so a pipeline models exactly the columns the fingerprint describes.
+Every family gets that typing and a front end adapted to what its model needs:
 
-* dropped: datetime columns, all-missing and constant columns, and identifier-like
-  columns (integers or text with a distinct value on every row of a table of more than
-  20 rows), as the fingerprint's profile does;
-* numeric columns (numbers and booleans, nullable pandas dtypes included; infinite
-  values count as missing): median imputation with missing-value indicators, then
-  standardisation when the family is scale-sensitive (``Family.needs_scaling``).
-  Histogram gradient boosting takes missing values natively and is not imputed;
-* categorical columns (text, pandas categoricals, mixed types): missing values become a
-  level of their own, levels rarer than 1 % of rows are grouped into one, and the
-  number of levels kept per column is capped, then encoded as the family asks
-  (``Family.categorical_encoding``): one-hot, ordinal codes, or ordinal codes declared
-  categorical to the estimator. For one-hot the cap shrinks as the number of
+* dropped: date/time columns (typed or date text), all-missing and constant columns,
+  and identifier-like columns;
+* numeric columns (numbers, booleans -- bool types, 0/1 numbers or true/false text --
+  and numbers stored as text, parsed as the fingerprint parses them, with the text that
+  is not a number as missing; infinite values are missing too): median imputation with
+  missing-value indicators, then standardisation when the family is scale-sensitive
+  (``Family.needs_scaling``). Histogram gradient boosting takes missing values natively
+  and is not imputed;
+* categorical columns (text, pandas categoricals, mixed types, integer codes): missing
+  values become a level of their own, levels rarer than 1 % of rows are grouped into
+  one, and the number of levels kept per column is capped, then encoded as the family
+  asks (``Family.categorical_encoding``): one-hot, ordinal codes, or ordinal codes
+  declared categorical to the estimator. For one-hot the cap shrinks as the number of
   categorical columns grows, so that wide text data cannot blow up the width that
   linear, kernel and distance models see (at most ``MAX_ONE_HOT_WIDTH`` columns);
 * the target is standardised for regression models whose hyperparameters are in
   target units (``Family.scale_target``, support vector regression).
 
-Columns are selected by position, so any column labels (numbers, duplicates of
-another frame's names) work.
+Columns are selected by position, so any column labels work (they must be distinct as
+text, as the fingerprint needs).
 """
 
 from __future__ import annotations
@@ -39,6 +42,16 @@ from sklearn.preprocessing import (
 
 from warmstart.errors import BadInputError
 from warmstart.families.base import Family
+from warmstart.fingerprint.profile import (
+    BOOLEAN,
+    CATEGORICAL,
+    NUMBER_ROLES,
+    NUMERIC,
+    NUMERIC_TEXT,
+    column_roles,
+    text_as_booleans,
+    text_as_numbers,
+)
 
 MAX_LEVELS = 30  # levels kept per categorical column (the rest grouped as "infrequent")
 MIN_LEVEL_FREQUENCY = 0.01  # levels rarer than this fraction of rows are grouped
@@ -46,46 +59,77 @@ MAX_ONE_HOT_WIDTH = 256  # one-hot columns in total, across all categorical colu
 MISSING_LEVEL = "(missing)"
 
 
-def split_columns(X: pd.DataFrame) -> tuple[list[int], list[int]]:
+def split_columns(X: pd.DataFrame, roles: dict | None = None) -> tuple[list[int], list[int]]:
     """Positions of the numeric and categorical feature columns of ``X``.
 
-    Columns that carry no usable signal (see the module docstring) are in neither list.
+    Parameters
+    ----------
+    X : DataFrame of shape (n_rows, n_columns)
+    roles : dict, optional
+        :func:`column_roles` of ``X`` (or of the table ``X`` was taken from, target
+        excluded), when already computed.
+
+    Columns that are not features (see the module docstring) are in neither list.
     """
-    numeric, categorical = [], []
-    n = len(X)
-    for i in range(X.shape[1]):
-        col = X.iloc[:, i]
-        if pd.api.types.is_datetime64_any_dtype(col) or pd.api.types.is_timedelta64_dtype(col):
-            continue
-        values = col.dropna()
-        is_num = pd.api.types.is_bool_dtype(col) or pd.api.types.is_numeric_dtype(col)
-        if is_num and not pd.api.types.is_bool_dtype(col):
-            finite = values[np.isfinite(values.to_numpy(dtype=float))]
-            values = finite
-        n_unique = values.nunique()
-        if n_unique <= 1:
-            continue  # all-missing or constant: nothing to learn from
-        if is_num:
-            integer = pd.api.types.is_integer_dtype(col) or (
-                not pd.api.types.is_bool_dtype(col)
-                and bool(np.all(values.to_numpy(dtype=float) % 1 == 0)))
-            if integer and n > 20 and n_unique == len(values) == n:
-                continue  # a row number or key
-            numeric.append(i)
-        elif n > 20 and n_unique == len(values) == n:
-            continue  # identifier-like text column
-        else:
-            categorical.append(i)
-    return numeric, categorical
+    return _split(_roles_by_position(X, roles))
 
 
-def to_float(X) -> np.ndarray:
-    """Numeric columns as float64, with missing (NaN, None, pd.NA) and infinite as NaN."""
+def _split(kinds: list[str]) -> tuple[list[int], list[int]]:
+    return ([i for i, r in enumerate(kinds) if r in NUMBER_ROLES],
+            [i for i, r in enumerate(kinds) if r == CATEGORICAL])
+
+
+def _roles_by_position(X: pd.DataFrame, roles: dict | None) -> list[str]:
+    if roles is None:
+        return list(column_roles(X).values())
+    if list(roles) != list(X.columns):
+        raise BadInputError("the column roles are for other columns than the table's")
+    return list(roles.values())
+
+
+def to_float(X, roles: list[str] | None = None) -> np.ndarray:
+    """Numeric columns as float64, with missing (NaN, None, pd.NA) and infinite as NaN.
+
+    Parameters
+    ----------
+    X : DataFrame or array of shape (n_rows, n_columns)
+    roles : list of str, optional
+        Each column's role: ``"numeric_text"`` is parsed as the fingerprint parses
+        numbers stored as text, ``"boolean"`` text is read as true/false; anything else
+        (the default) is converted with ``pandas.to_numeric``.
+
+    Returns
+    -------
+    ndarray of shape (n_rows, n_columns)
+    """
     df = pd.DataFrame(X)
-    out = np.array(df.apply(pd.to_numeric, errors="coerce").to_numpy(dtype=float,
-                                                                  na_value=np.nan))
+    roles = roles if roles is not None else [NUMERIC] * df.shape[1]
+    out = np.empty(df.shape)
+    for j, role in enumerate(roles):
+        col = df.iloc[:, j]
+        if role == NUMERIC_TEXT:
+            out[:, j] = text_as_numbers(col)
+        elif role == BOOLEAN and _is_text(col):
+            out[:, j] = text_as_booleans(col)
+        else:
+            out[:, j] = _numbers(col)
     out[~np.isfinite(out)] = np.nan
     return out
+
+
+def _is_text(col: pd.Series) -> bool:
+    return not (pd.api.types.is_numeric_dtype(col) or pd.api.types.is_bool_dtype(col)
+                or pd.api.types.infer_dtype(col, skipna=True) in ("boolean", "empty"))
+
+
+def _numbers(col: pd.Series) -> np.ndarray:
+    """A numeric, boolean or duration column as float64 (durations in their own unit)."""
+    if pd.api.types.is_timedelta64_dtype(col):
+        values = col.to_numpy()
+        return np.where(pd.isna(values), np.nan, values.view(np.int64).astype(float))
+    if col.dtype == object and pd.api.types.infer_dtype(col, skipna=True) == "boolean":
+        col = col.astype("boolean")
+    return pd.to_numeric(col, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
 
 
 def to_text(X) -> pd.DataFrame:
@@ -105,7 +149,7 @@ def levels_per_column(n_categorical: int) -> int:
 
 
 def make_pipeline(family: Family, task: str, config: dict, X: pd.DataFrame,
-                  seed: int | None = 0) -> Pipeline:
+                  seed: int | None = 0, roles: dict | None = None) -> Pipeline:
     """An unfitted pipeline: preprocessing for ``X``'s columns, then the estimator.
 
     Parameters
@@ -118,35 +162,23 @@ def make_pipeline(family: Family, task: str, config: dict, X: pd.DataFrame,
         The features (only their column types and value counts are used).
     seed : int, optional
         ``random_state`` for seeded estimators.
+    roles : dict, optional
+        :func:`column_roles` of the table ``X`` comes from (target excluded, same
+        columns in the same order); typed from ``X`` itself when not given.
     """
-    numeric, categorical = split_columns(X)
+    kinds = _roles_by_position(X, roles)
+    numeric, categorical = _split(kinds)
     encoding = family.categorical_encoding
     transformers = []
     # Categorical block first: its output columns are then 0..len(categorical)-1,
     # which is what histogram gradient boosting's ``categorical_features`` needs.
     if categorical:
-        if encoding == "one_hot":
-            encoder = OneHotEncoder(handle_unknown="infrequent_if_exist",
-                                    min_frequency=MIN_LEVEL_FREQUENCY,
-                                    max_categories=levels_per_column(len(categorical)),
-                                    sparse_output=False)
-        else:
-            # Unknown levels at predict time are coded like missing ones: -1 for the
-            # imputed trees' ordinal codes; NaN (native missing) for the native encoding.
-            unknown = np.nan if encoding == "native" else -1
-            encoder = OrdinalEncoder(handle_unknown="use_encoded_value", unknown_value=unknown,
-                                     encoded_missing_value=unknown,
-                                     min_frequency=MIN_LEVEL_FREQUENCY,
-                                     max_categories=MAX_LEVELS)
-        steps = [("to_text", FunctionTransformer(to_text, feature_names_out="one-to-one"))]
-        if encoding != "native":
-            steps.append(("impute", SimpleImputer(strategy="constant",
-                                                  fill_value=MISSING_LEVEL)))
-        steps.append(("encode", encoder))
-        transformers.append(("categorical", Pipeline(steps), categorical))
+        transformers.append(("categorical", _categorical_block(encoding, len(categorical)),
+                             categorical))
     if numeric:
-        num_steps: list = [("to_float", FunctionTransformer(to_float,
-                                                            feature_names_out="one-to-one"))]
+        read = FunctionTransformer(to_float, kw_args={"roles": [kinds[i] for i in numeric]},
+                                   feature_names_out="one-to-one")
+        num_steps: list = [("to_float", read)]
         if encoding != "native":
             num_steps.append(("impute", SimpleImputer(strategy="median", add_indicator=True)))
         if family.needs_scaling:
@@ -162,3 +194,25 @@ def make_pipeline(family: Family, task: str, config: dict, X: pd.DataFrame,
     if family.scale_target and task == "regression":
         model = TransformedTargetRegressor(regressor=model, transformer=StandardScaler())
     return Pipeline([("prepare", pre), ("model", model)])
+
+
+def _categorical_block(encoding: str, n_categorical: int) -> Pipeline:
+    """Text conversion, missing level (unless native) and the family's encoder."""
+    if encoding == "one_hot":
+        encoder = OneHotEncoder(handle_unknown="infrequent_if_exist",
+                                min_frequency=MIN_LEVEL_FREQUENCY,
+                                max_categories=levels_per_column(n_categorical),
+                                sparse_output=False)
+    else:
+        # Unknown levels at predict time are coded like missing ones: -1 for the
+        # imputed trees' ordinal codes; NaN (native missing) for the native encoding.
+        unknown = np.nan if encoding == "native" else -1
+        encoder = OrdinalEncoder(handle_unknown="use_encoded_value", unknown_value=unknown,
+                                 encoded_missing_value=unknown,
+                                 min_frequency=MIN_LEVEL_FREQUENCY,
+                                 max_categories=MAX_LEVELS)
+    steps = [("to_text", FunctionTransformer(to_text, feature_names_out="one-to-one"))]
+    if encoding != "native":
+        steps.append(("impute", SimpleImputer(strategy="constant", fill_value=MISSING_LEVEL)))
+    steps.append(("encode", encoder))
+    return Pipeline(steps)

@@ -14,12 +14,14 @@ fingerprints are at distance 0. Similarity is ``1 / (1 + distance)``.
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass
 
 import numpy as np
 
 from warmstart.fingerprint import CATALOGUE, Fingerprint
+from warmstart.values import finite_or_none
 
 CLIP = 5.0
 AGREE_STEP = 0.05  # scaled units within which two agreements count as equally close
@@ -75,7 +77,9 @@ def fit_scaler(X: np.ndarray, names: list[str]) -> Scaler:
     Xl = np.array(X, dtype=float, copy=True)
     with np.errstate(invalid="ignore"):
         Xl[:, log_mask] = np.sign(Xl[:, log_mask]) * np.log1p(np.abs(Xl[:, log_mask]))
-    with np.errstate(all="ignore"), _quiet():
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        # a column nobody defines is all NaN: numpy warns, the fallbacks below handle it
+        warnings.simplefilter("ignore", RuntimeWarning)
         center = np.nanmedian(Xl, axis=0)
         q1, q3 = np.nanquantile(Xl, [0.25, 0.75], axis=0)
         std = np.nanstd(Xl, axis=0)
@@ -84,20 +88,6 @@ def fit_scaler(X: np.ndarray, names: list[str]) -> Scaler:
                      np.where(np.isfinite(std) & (std > 1e-12), std, 1.0))
     center = np.where(np.isfinite(center), center, 0.0)
     return Scaler(names, center, scale, log_mask)
-
-
-class _quiet:
-    """Silence numpy's 'all-NaN slice' RuntimeWarnings for columns nobody defines."""
-
-    def __enter__(self):
-        import warnings
-
-        self._ctx = warnings.catch_warnings()
-        self._ctx.__enter__()
-        warnings.simplefilter("ignore", RuntimeWarning)
-
-    def __exit__(self, *exc):
-        return self._ctx.__exit__(*exc)
 
 
 def scaled_differences(query: np.ndarray, others: np.ndarray) -> np.ndarray:
@@ -135,16 +125,14 @@ class Neighbour:
 
     def to_dict(self) -> dict[str, object]:
         def items(rows):
-            return [{"meta_feature": n, "query": _j(a), "neighbour": _j(b)} for n, a, b in rows]
+            return [{"meta_feature": n, "query": finite_or_none(a),
+                     "neighbour": finite_or_none(b)} for n, a, b in rows]
 
         return {"dataset_id": self.dataset_id, "name": self.name,
-                "distance": _j(self.distance), "similarity": _j(self.similarity),
+                "distance": finite_or_none(self.distance),
+                "similarity": finite_or_none(self.similarity),
                 "shared_meta_features": self.shared_features,
                 "agree_most": items(self.agree), "differ_most": items(self.differ)}
-
-
-def _j(x: float) -> float | None:
-    return float(x) if np.isfinite(x) else None
 
 
 def nearest(query: Fingerprint, history: Mapping[str, Fingerprint], names: Mapping[str, str],

@@ -1,25 +1,24 @@
 """Histogram-based gradient boosting (scikit-learn's HistGradientBoosting*)."""
 
 from warmstart.families.base import Family
-from warmstart.spaces import BOOL, CATEGORICAL, FLOAT, INT, Param, SearchSpace
+from warmstart.spaces import BoolParam, CategoricalParam, FloatParam, IntParam, SearchSpace
 
 
 def _space(task: str) -> SearchSpace:
     params = [
-        Param("learning_rate", FLOAT, 0.005, 1.0, log=True, default=0.1),
-        Param("max_iter", INT, 10, 1000, log=True, default=100),
-        Param("max_leaf_nodes", INT, 4, 256, log=True, default=31),
-        Param("max_depth", INT, 2, 30, allow_none=True, default=None),
-        Param("min_samples_leaf", INT, 1, 200, log=True, default=20),
-        Param("l2_regularization", FLOAT, 1e-8, 100.0, log=True, default=1e-8),
-        Param("max_features", FLOAT, 0.1, 1.0, default=1.0),
-        Param("early_stopping", BOOL, default=False),
+        FloatParam("learning_rate", 0.005, 1.0, log=True, default=0.1),
+        IntParam("max_iter", 10, 1000, log=True, default=100),
+        IntParam("max_leaf_nodes", 4, 256, log=True, default=31),
+        IntParam("max_depth", 2, 30, allow_none=True, default=None),
+        IntParam("min_samples_leaf", 1, 200, log=True, default=20),
+        FloatParam("l2_regularization", 1e-8, 100.0, log=True, default=1e-8),
+        FloatParam("max_features", 0.1, 1.0, default=1.0),
+        BoolParam("early_stopping", default=False),
     ]
     if task == "classification":
         # Re-weighting classes matters on imbalanced data, where a balanced-accuracy study
         # otherwise finds only configurations that favour the majority class.
-        params.append(Param("class_weight", CATEGORICAL, choices=(None, "balanced"),
-                            default=None))
+        params.append(CategoricalParam("class_weight", (None, "balanced"), default=None))
     return SearchSpace(tuple(params))
 
 

@@ -1,14 +1,14 @@
 """k-nearest neighbours (Cover & Hart 1967)."""
 
 from warmstart.families.base import Family
-from warmstart.spaces import CATEGORICAL, INT, Param, SearchSpace
+from warmstart.spaces import CategoricalParam, IntParam, SearchSpace
 
 
 def _space() -> SearchSpace:
     return SearchSpace((
-        Param("n_neighbors", INT, 1, 100, log=True, default=5),
-        Param("weights", CATEGORICAL, choices=("uniform", "distance"), default="uniform"),
-        Param("p", INT, 1, 2, default=2),
+        IntParam("n_neighbors", 1, 100, log=True, default=5),
+        CategoricalParam("weights", ("uniform", "distance"), default="uniform"),
+        IntParam("p", 1, 2, default=2),
     ))
 
 

@@ -1,7 +1,7 @@
 """Regularised linear models: logistic regression (classification), ridge (regression)."""
 
 from warmstart.families.base import Family
-from warmstart.spaces import BOOL, CATEGORICAL, FLOAT, Param, SearchSpace
+from warmstart.spaces import BoolParam, CategoricalParam, FloatParam, SearchSpace
 
 FAMILY = Family(
     name="linear",
@@ -12,13 +12,13 @@ FAMILY = Family(
     },
     spaces={
         "classification": SearchSpace((
-            Param("C", FLOAT, 1e-5, 1e5, log=True, default=1.0),
-            Param("class_weight", CATEGORICAL, choices=(None, "balanced"), default=None),
-            Param("fit_intercept", BOOL, default=True),
+            FloatParam("C", 1e-5, 1e5, log=True, default=1.0),
+            CategoricalParam("class_weight", (None, "balanced"), default=None),
+            BoolParam("fit_intercept", default=True),
         )),
         "regression": SearchSpace((
-            Param("alpha", FLOAT, 1e-6, 1e5, log=True, default=1.0),
-            Param("fit_intercept", BOOL, default=True),
+            FloatParam("alpha", 1e-6, 1e5, log=True, default=1.0),
+            BoolParam("fit_intercept", default=True),
         )),
     },
     needs_scaling=True,

@@ -1,7 +1,14 @@
 """Random forest (Breiman 2001): bagged, feature-subsampled decision trees."""
 
 from warmstart.families.base import Family
-from warmstart.spaces import BOOL, CATEGORICAL, FLOAT, INT, Condition, Param, SearchSpace
+from warmstart.spaces import (
+    BoolParam,
+    CategoricalParam,
+    Condition,
+    FloatParam,
+    IntParam,
+    SearchSpace,
+)
 
 
 def forest_space(criteria: tuple[str, ...], bootstrap_default: bool,
@@ -11,17 +18,17 @@ def forest_space(criteria: tuple[str, ...], bootstrap_default: bool,
     ``criteria`` lists the split criteria worth searching (the first is the default); an
     empty tuple leaves the criterion at the estimator's default.
     """
-    criterion = [Param("criterion", CATEGORICAL, choices=criteria, default=criteria[0])
+    criterion = [CategoricalParam("criterion", criteria, default=criteria[0])
                  ] if criteria else []
     return SearchSpace((
-        Param("n_estimators", INT, 10, 1000, log=True, default=100),
+        IntParam("n_estimators", 10, 1000, log=True, default=100),
         *criterion,
-        Param("max_depth", INT, 2, 60, allow_none=True, default=None),
-        Param("min_samples_split", INT, 2, 50, log=True, default=2),
-        Param("min_samples_leaf", INT, 1, 50, log=True, default=1),
-        Param("max_features", FLOAT, 0.05, 1.0, default=max_features_default),
-        Param("bootstrap", BOOL, default=bootstrap_default),
-        Param("max_samples", FLOAT, 0.1, 1.0, allow_none=True, default=None,
+        IntParam("max_depth", 2, 60, allow_none=True, default=None),
+        IntParam("min_samples_split", 2, 50, log=True, default=2),
+        IntParam("min_samples_leaf", 1, 50, log=True, default=1),
+        FloatParam("max_features", 0.05, 1.0, default=max_features_default),
+        BoolParam("bootstrap", default=bootstrap_default),
+        FloatParam("max_samples", 0.1, 1.0, allow_none=True, default=None,
               condition=Condition("bootstrap", (True,))),
     ))
 

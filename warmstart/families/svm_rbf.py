@@ -1,7 +1,7 @@
 """Support vector machines with a radial-basis-function kernel (SVC / SVR)."""
 
 from warmstart.families.base import Family
-from warmstart.spaces import CATEGORICAL, FLOAT, Param, SearchSpace
+from warmstart.spaces import CategoricalParam, FloatParam, SearchSpace
 
 FAMILY = Family(
     name="svm_rbf",
@@ -12,14 +12,14 @@ FAMILY = Family(
     },
     spaces={
         "classification": SearchSpace((
-            Param("C", FLOAT, 1e-3, 1e4, log=True, default=1.0),
-            Param("gamma", FLOAT, 1e-5, 10.0, log=True, default=0.1),
-            Param("class_weight", CATEGORICAL, choices=(None, "balanced"), default=None),
+            FloatParam("C", 1e-3, 1e4, log=True, default=1.0),
+            FloatParam("gamma", 1e-5, 10.0, log=True, default=0.1),
+            CategoricalParam("class_weight", (None, "balanced"), default=None),
         )),
         "regression": SearchSpace((
-            Param("C", FLOAT, 1e-3, 1e4, log=True, default=1.0),
-            Param("gamma", FLOAT, 1e-5, 10.0, log=True, default=0.1),
-            Param("epsilon", FLOAT, 1e-4, 1.0, log=True, default=0.1),
+            FloatParam("C", 1e-3, 1e4, log=True, default=1.0),
+            FloatParam("gamma", 1e-5, 10.0, log=True, default=0.1),
+            FloatParam("epsilon", 1e-4, 1.0, log=True, default=0.1),
         )),
     },
     needs_scaling=True,

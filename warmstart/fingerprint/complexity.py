@@ -3,7 +3,7 @@
 Ho & Basu, IEEE TPAMI 24(3), 2002; the multiclass forms of Lorena, Garcia, Lehmann,
 Souto & Ho, ACM Computing Surveys 52(5), 2019. Computed on the ``COMPLEXITY_ROWS``
 labelled sample rows of smallest sampling priority (a seeded sub-sample; all labelled
-rows when fewer), in :func:`frontend.design`'s space (numeric columns standardised,
+rows when fewer), in :func:`design_matrix.design`'s space (numeric columns standardised,
 categorical ones one-hot). Distances are Euclidean.
 """
 
@@ -14,7 +14,7 @@ from scipy.sparse.csgraph import minimum_spanning_tree
 from scipy.spatial.distance import pdist, squareform
 
 from warmstart.fingerprint.catalogue import CLASSIFICATION, group, meta_feature
-from warmstart.fingerprint.frontend import design, labelled_rows
+from warmstart.fingerprint.design_matrix import design, labelled_rows
 from warmstart.fingerprint.profile import DatasetProfile
 
 COMPLEXITY = group("complexity", "Class overlap and boundary complexity (classification)")

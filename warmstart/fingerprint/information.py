@@ -14,7 +14,7 @@ import numpy as np
 from scipy import stats
 
 from warmstart.fingerprint.catalogue import group, meta_feature, reduce_or_nan
-from warmstart.fingerprint.frontend import labelled_rows
+from warmstart.fingerprint.design_matrix import labelled_rows
 from warmstart.fingerprint.profile import CLASSIFICATION, DatasetProfile
 
 INFORMATION = group("information", "Entropy and mutual information (discretised features)")

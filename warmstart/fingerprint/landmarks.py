@@ -1,6 +1,6 @@
 """Landmarks: how well cheap models do, cross-validated on the sample.
 
-Each model sees :func:`frontend.design` (median imputation, standardisation, one-hot) on
+Each model sees :func:`design_matrix.design` (median imputation, standardisation, one-hot) on
 the labelled sample rows, with ``FOLDS`` seeded folds (stratified for classification);
 the score is computed once on the pooled out-of-fold predictions -- balanced accuracy for
 classification, R^2 for regression (Pfahringer, Bensusan & Giraud-Carrier, ICML 2000).
@@ -14,7 +14,7 @@ import warnings
 import numpy as np
 
 from warmstart.fingerprint.catalogue import BOTH, CLASSIFICATION, group, meta_feature
-from warmstart.fingerprint.frontend import design
+from warmstart.fingerprint.design_matrix import design
 from warmstart.fingerprint.profile import DatasetProfile
 
 LANDMARKS = group("landmarks", "Cross-validated scores of cheap models (on the sample)")

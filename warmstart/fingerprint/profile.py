@@ -5,39 +5,43 @@ and the handling of dirty columns live in one place. The table is read once, in 
 (:mod:`.scan`); the profile holds exact one-pass summaries of every row plus a seeded
 sample of at most ``SAMPLE_CAP`` rows (all rows when the table is smaller).
 
-Column typing rules (applied to every column but the target, in this order):
+Column typing rules (applied to every column but the target, in this order). They give
+each column a role (:func:`column_roles`, in brackets), which the preprocessing pipelines
+use too, so that a pipeline models exactly the columns its fingerprint describes:
 
 * unsupported Arrow types (lists, structs, maps): read as their text form;
-* all-missing: no non-missing (for numbers: no finite) value -- dropped, warned;
-* date/time: a date, time or timestamp type, or text of which at least 95 % of the
-  sampled values (first 200 non-missing) look like and parse as dates -- counted in
-  ``datetime_column_fraction`` but not used as features, warned;
-* constant: one distinct value -- dropped, warned;
-* boolean: a bool type, numbers whose only values are 0 and 1, or text with exactly two
-  values forming true/false, yes/no, t/f, y/n (any case) or 1/0 -- used as 0/1 numbers;
-* identifier: whole numbers that are all distinct (more than 20 values) and either fill a
-  dense range (max - min + 1 <= 2 x count) or sit in a column named like an id (``id``,
-  ``..._id``, ``...Id``, ``...ID``); or text whose (more than 20) non-missing values are
-  all distinct -- dropped, warned. Beyond ``LEVEL_CAP`` distinct values "all distinct"
-  means an estimated distinct count of at least 97 % of the values (the sketch's error
-  is about 1.6 %);
-* integer-coded categorical: whole numbers with 3 to ``INTEGER_CATEGORY_MAX_LEVELS``
-  distinct values *and* a name that marks a code (ending in ``_id``, ``_code``,
-  ``_type``, ``_class``, ``_cat``, ``_category``, ``_group``, ``_kind``, ``_zip``,
-  ``_level``, or named ``code``, ``type``, ``kind``, ``category``, ``zip``): both pieces
-  of evidence are needed, since few integer levels alone (ratings, counts of children)
-  usually do carry an order;
-* numbers stored as text: text of which at least 95 % (but not all) of the values parse
-  as decimal numbers -- used as numbers, the rest treated as missing, warned. Text that
-  is entirely numeric (zip codes, codes with leading zeros) stays categorical: it was
-  stored as text on purpose;
-* numeric: every other number column. Infinite values are treated as missing (in the
-  numeric and the missing groups), warned;
-* categorical: everything else. Text that mixes numbers and words (5 % to 95 % of the
-  values parse as numbers, or Python objects of several types in a DataFrame) is
-  categorical, warned. High-cardinality columns (more than max(50, half the
-  non-missing values) levels) are kept for the categorical summaries but left out of the
-  model-based groups (landmarks, information, complexity), warned.
+* all-missing (``empty``): no non-missing (for numbers: no finite) value -- dropped,
+  warned;
+* date/time (``date``): a date, time or timestamp type, or text of which at least 95 %
+  of the sampled values (first 200 non-missing) look like and parse as dates -- counted
+  in ``datetime_column_fraction`` but not used as features, warned;
+* constant (``constant``): one distinct value -- dropped, warned;
+* boolean (``boolean``): a bool type, numbers whose only values are 0 and 1, or text
+  with exactly two values forming true/false, yes/no, t/f, y/n (any case) or 1/0 -- used
+  as 0/1 numbers;
+* identifier (``identifier``): whole numbers that are all distinct (more than 20 values)
+  and either fill a dense range (max - min + 1 <= 2 x count) or sit in a column named
+  like an id (``id``, ``..._id``, ``...Id``, ``...ID``); or text whose (more than 20)
+  non-missing values are all distinct -- dropped, warned. Beyond ``LEVEL_CAP`` distinct
+  values "all distinct" means an estimated distinct count of at least 97 % of the values
+  (the sketch's error is about 1.6 %);
+* integer-coded categorical (``categorical``): whole numbers with 3 to
+  ``INTEGER_CATEGORY_MAX_LEVELS`` distinct values *and* a name that marks a code (ending
+  in ``_id``, ``_code``, ``_type``, ``_class``, ``_cat``, ``_category``, ``_group``,
+  ``_kind``, ``_zip``, ``_level``, or named ``code``, ``type``, ``kind``, ``category``,
+  ``zip``): both pieces of evidence are needed, since few integer levels alone (ratings,
+  counts of children) usually do carry an order;
+* numbers stored as text (``numeric_text``): text of which at least 95 % (but not all)
+  of the values parse as decimal numbers -- used as numbers, the rest treated as
+  missing, warned. Text that is entirely numeric (zip codes, codes with leading zeros)
+  stays categorical: it was stored as text on purpose;
+* numeric (``numeric``): every other number column. Infinite values are treated as
+  missing (in the numeric and the missing groups), warned;
+* categorical (``categorical``): everything else. Text that mixes numbers and words (5 %
+  to 95 % of the values parse as numbers, or Python objects of several types in a
+  DataFrame) is categorical, warned. High-cardinality columns (more than max(50, half
+  the non-missing values) levels) are kept for the categorical summaries but left out of
+  the model-based groups (landmarks, information, complexity), warned.
 """
 
 from __future__ import annotations
@@ -58,6 +62,8 @@ from warmstart.fingerprint.scan import (
     NUMBER,
     SAMPLE_CAP,
     Scan,
+    Source,
+    frame_to_arrow,
     parse_numbers,
     scan,
     source_of,
@@ -71,8 +77,17 @@ _CODE_NAMES = {"code", "type", "kind", "category", "zip"}
 _ID_NAME = re.compile(r"(^id$|_id$|[a-z0-9]Id$|ID$)")
 _BOOL_STRINGS = ({"true", "false"}, {"yes", "no"}, {"t", "f"}, {"y", "n"}, {"1", "0"})
 _TRUE = {"true", "yes", "t", "y", "1"}
+_FALSE = {"false", "no", "f", "n", "0"}
 CLASSIFICATION, REGRESSION = "classification", "regression"
 TASKS = (CLASSIFICATION, REGRESSION)
+
+# Column roles (see column_roles). Numeric, boolean and numeric-text columns are modelled
+# as numbers, categorical ones as levels; the other four are not features.
+NUMERIC, BOOLEAN, NUMERIC_TEXT, CATEGORICAL = "numeric", "boolean", "numeric_text", "categorical"
+DATE, IDENTIFIER, CONSTANT, EMPTY = "date", "identifier", "constant", "empty"
+NUMBER_ROLES = (NUMERIC, BOOLEAN, NUMERIC_TEXT)
+FEATURE_ROLES = (*NUMBER_ROLES, CATEGORICAL)
+ROLES = (*FEATURE_ROLES, DATE, IDENTIFIER, CONSTANT, EMPTY)
 
 
 @dataclass
@@ -243,13 +258,14 @@ _NOTES = (
     "high-cardinality categorical columns (kept for the categorical summaries, left out of "
     "landmarks, information and complexity)",
 )
+_DROPPED = {EMPTY: _NOTES[0], CONSTANT: _NOTES[1], IDENTIFIER: _NOTES[2], DATE: _NOTES[8]}
 
 
 def build_profile(s: Scan, task: str | None = None) -> DatasetProfile:
     """Type the columns of a :class:`Scan` and assemble the profile."""
     cols = _Columns()
-    for c in s.feature_cols:
-        _type_column(s, c, cols)
+    for c, role in zip(s.feature_cols, scan_roles(s)):
+        _add_column(s, c, role, cols)
     warnings = [f"{what}: {', '.join(cols.notes[what])}" for what in _NOTES if what in cols.notes]
 
     t = s.names.index(s.target)
@@ -294,100 +310,158 @@ def _rows_distinct(s: Scan) -> float:
     return est if exact else min(est, float(s.n_rows))
 
 
-def _type_column(s: Scan, c: int, cols: _Columns) -> None:
-    label, kind = s.names[c], s.kinds[c]
-    if kind == "unsupported":
-        cols.note("unsupported column types read as text", label)
-    if kind == DATETIME:
-        if s.nonnull[c] == 0:
-            cols.note("all-missing columns dropped", label)
-        else:
-            cols.n_datetime += 1
-            cols.note("date/time columns counted but not used as features", label)
-        return
-    if kind == NUMBER:
-        _type_number(s, c, cols)
-    else:
-        _type_text(s, c, cols)
+# -- column roles: the one set of typing rules -----------------------------------------------
+def column_roles(frame: pd.DataFrame, target: str | None = None) -> dict:
+    """The role of every feature column of ``frame``, by the profile's typing rules.
+
+    This is how the fingerprint types a table (see the module docstring), and what the
+    preprocessing pipelines model, so the two always describe the same columns.
+
+    Parameters
+    ----------
+    frame : DataFrame of shape (n_rows, n_columns)
+    target : str, optional
+        The target column, which gets no role. Without it every column is a feature.
+
+    Returns
+    -------
+    dict
+        Column label (as in ``frame``) -> role, in column order. Roles used as
+        features: ``"numeric"``, ``"boolean"`` (0/1), ``"numeric_text"`` (numbers
+        stored as text) and ``"categorical"``; dropped: ``"date"``, ``"identifier"``,
+        ``"constant"`` and ``"empty"`` (all missing).
+    """
+    if not isinstance(frame, pd.DataFrame):
+        raise BadInputError(f"expected a DataFrame, not {type(frame).__name__}")
+    if len(frame) == 0:
+        raise BadInputError("the table has no rows")
+    table, mixed = frame_to_arrow(frame)
+    if target is None:
+        # The scan needs a target: an all-missing column of a free name, typed as nothing.
+        target = "target" + "_" * (1 + max(map(len, table.column_names), default=0))
+        table = table.append_column(target, pa.nulls(table.num_rows))
+    elif str(target) not in table.column_names:
+        cols = ", ".join(table.column_names[:20])
+        raise BadInputError(f"target column {str(target)!r} not found; columns are: {cols}")
+    source = Source(table.schema, table.num_rows,
+                    lambda: iter(table.to_batches(max_chunksize=BATCH_ROWS)), mixed)
+    s = scan(source, str(target))
+    labels = list(frame.columns)
+    return {labels[c]: role for c, role in zip(s.feature_cols, scan_roles(s))}
 
 
-def _type_number(s: Scan, c: int, cols: _Columns) -> None:
-    label = s.names[c]
-    j = s.number_cols.index(c)
-    st = s.number
+def scan_roles(s: Scan) -> list[str]:
+    """The role of each feature column of a scan, aligned with ``s.feature_cols``."""
+    return [_role(s, c) for c in s.feature_cols]
+
+
+def _role(s: Scan, c: int) -> str:
+    if s.kinds[c] == DATETIME:
+        return DATE if s.nonnull[c] else EMPTY
+    return _number_role(s, c) if s.kinds[c] == NUMBER else _text_role(s, c)
+
+
+def _number_role(s: Scan, c: int) -> str:
+    label, j, st = s.names[c], s.number_cols.index(c), s.number
     finite, lo, hi = st.finite[j], st.minimum[j], st.maximum[j]
-    if st.infinite[j]:
-        cols.note("infinite values treated as missing in", f"{label} ({int(st.infinite[j])})")
     if finite == 0:
-        cols.note("all-missing columns dropped", label)
-        return
+        return EMPTY
     if lo == hi:
-        cols.note("constant columns dropped", label)
-        return
-    values = s.sample_numbers[:, j].copy()
-    values[~np.isfinite(values)] = np.nan
+        return CONSTANT
     distinct, exact = s.column_distinct(c)
     integer = bool(st.integer[j])
     if s.types[c] == "bool" or (distinct == 2 and lo == 0 and hi == 1):
-        cols.n_boolean += 1
-        cols.numeric.append((label, values, None))
-        return
+        return BOOLEAN
     if integer and finite > ID_MIN_VALUES and _all_distinct(distinct, exact, finite) and (
             hi - lo + 1 <= 2 * finite or _ID_NAME.search(label)):
-        cols.note("identifier-like columns (unique per row) dropped", label)
-        return
+        return IDENTIFIER
     if integer and 3 <= distinct <= INTEGER_CATEGORY_MAX_LEVELS and _is_code_name(label):
-        cols.note("integer codes treated as categorical", label)
-        cols.categorical.append((label, values, s.column_levels(c),
-                                 (distinct, exact, False)))
-        return
-    moments = np.array([st.moments.n[j], st.moments.mean[j], st.moments.m2[j],
-                        st.moments.m3[j], st.moments.m4[j]])
-    cols.numeric.append((label, values, (moments, integer)))
+        return CATEGORICAL  # an integer code
+    return NUMERIC
 
 
-def _type_text(s: Scan, c: int, cols: _Columns) -> None:
-    label = s.names[c]
-    t = s.text_cols.index(c)
-    nonnull = s.nonnull[c]
+def _text_role(s: Scan, c: int) -> str:
+    t, nonnull = s.text_cols.index(c), s.nonnull[c]
     if nonnull == 0:
-        cols.note("all-missing columns dropped", label)
-        return
+        return EMPTY
     distinct, exact = s.column_distinct(c)
-    counter = s.column_levels(c)
-    raw = s.sample_text[:, t]
     if distinct == 1:
-        cols.note("constant columns dropped", label)
-        return
+        return CONSTANT
     if distinct == 2 and exact:
-        lowered = {str(k).strip().lower() for k in counter.keys}
-        if lowered in _BOOL_STRINGS:
-            cols.n_boolean += 1
-            cols.numeric.append((label, _text_bool(raw), None))
-            return
+        if {str(k).strip().lower() for k in s.column_levels(c).keys} in _BOOL_STRINGS:
+            return BOOLEAN
     share = s.parsed.finite[t] / nonnull
     if 0.95 <= share < 1.0:
+        return NUMERIC_TEXT
+    if share < 0.95 and _looks_like_dates(s.sample_text[:, t]):
+        return DATE
+    if nonnull > ID_MIN_VALUES and _all_distinct(distinct, exact, nonnull):
+        return IDENTIFIER
+    return CATEGORICAL
+
+
+def _add_column(s: Scan, c: int, role: str, cols: _Columns) -> None:
+    """Record one typed column in ``cols``: its sample values, summaries and notes."""
+    label = s.names[c]
+    if s.kinds[c] == "unsupported":
+        cols.note("unsupported column types read as text", label)
+    if s.kinds[c] == NUMBER:
+        j = s.number_cols.index(c)
+        if s.number.infinite[j]:
+            cols.note("infinite values treated as missing in",
+                      f"{label} ({int(s.number.infinite[j])})")
+    if role in _DROPPED:
+        cols.note(_DROPPED[role], label)
+        if role == DATE:
+            cols.n_datetime += 1
+        return
+    if role == BOOLEAN:
+        cols.n_boolean += 1
+    if s.kinds[c] == NUMBER:
+        _add_number(s, c, role, cols)
+    else:
+        _add_text(s, c, role, cols)
+
+
+def _add_number(s: Scan, c: int, role: str, cols: _Columns) -> None:
+    label, j, st = s.names[c], s.number_cols.index(c), s.number
+    values = s.sample_numbers[:, j].copy()
+    values[~np.isfinite(values)] = np.nan
+    if role == BOOLEAN:
+        cols.numeric.append((label, values, None))
+    elif role == CATEGORICAL:
+        cols.note("integer codes treated as categorical", label)
+        distinct, exact = s.column_distinct(c)
+        cols.categorical.append((label, values, s.column_levels(c), (distinct, exact, False)))
+    else:
+        moments = np.array([st.moments.n[j], st.moments.mean[j], st.moments.m2[j],
+                            st.moments.m3[j], st.moments.m4[j]])
+        cols.numeric.append((label, values, (moments, bool(st.integer[j]))))
+
+
+def _add_text(s: Scan, c: int, role: str, cols: _Columns) -> None:
+    label, t, nonnull = s.names[c], s.text_cols.index(c), s.nonnull[c]
+    raw = s.sample_text[:, t]
+    if role == BOOLEAN:
+        cols.numeric.append((label, text_as_booleans(raw), None))
+        return
+    if role == NUMERIC_TEXT:
         cols.note("numbers stored as text (non-numbers treated as missing) in",
                   f"{label} ({int(nonnull - s.parsed.finite[t])})")
-        values = _parse_sample(raw)
         p = s.parsed.moments
         moments = np.array([p.n[t], p.mean[t], p.m2[t], p.m3[t], p.m4[t]])
-        cols.numeric.append((label, values, (moments, bool(s.parsed.integer[t]))))
+        cols.numeric.append((label, text_as_numbers(raw),
+                             (moments, bool(s.parsed.integer[t]))))
         return
-    if share < 0.95 and _looks_like_dates(raw):
-        cols.n_datetime += 1
-        cols.note("date/time columns counted but not used as features", label)
-        return
-    if nonnull > ID_MIN_VALUES and _all_distinct(distinct, exact, nonnull):
-        cols.note("identifier-like columns (unique per row) dropped", label)
-        return
+    share = s.parsed.finite[t] / nonnull
     if label in s.mixed or 0.05 < share < 0.95:
         cols.note("mixed types (numbers and text) treated as categorical in", label)
+    distinct, exact = s.column_distinct(c)
     high = distinct > max(50.0, 0.5 * nonnull)
     if high:
         cols.note("high-cardinality categorical columns (kept for the categorical summaries, "
                   "left out of landmarks, information and complexity)", label)
-    cols.categorical.append((label, raw, counter, (distinct, exact, bool(high))))
+    cols.categorical.append((label, raw, s.column_levels(c), (distinct, exact, bool(high))))
 
 
 def _all_distinct(distinct: float, exact: bool, count: float) -> bool:
@@ -399,19 +473,48 @@ def _is_code_name(label: str) -> bool:
     return low.endswith(_CODE_SUFFIXES) or low in _CODE_NAMES
 
 
-def _text_bool(raw: np.ndarray) -> np.ndarray:
-    out = np.full(raw.size, np.nan)
-    for i, v in enumerate(raw):
-        if v is not None:
-            out[i] = 1.0 if str(v).strip().lower() in _TRUE else 0.0
+# -- conversions shared with the pipelines ----------------------------------------------------
+def _as_text(values) -> pa.Array:
+    """Non-missing values as strings (``str(v)``, as a frame's mixed column is read)."""
+    col = pd.Series(values, dtype=object)
+    missing = col.isna().to_numpy()
+    text = [None if m else (v if isinstance(v, str) else str(v))
+            for v, m in zip(col.tolist(), missing)]
+    return pa.array(text, type=pa.large_string())
+
+
+def text_as_numbers(values) -> np.ndarray:
+    """Text parsed as decimal numbers, as the scan parses it.
+
+    Parameters
+    ----------
+    values : array-like of shape (n,)
+        Strings (other values are read as ``str(v)``); None, NaN and pd.NA are missing.
+
+    Returns
+    -------
+    ndarray of shape (n,) of float64
+        NaN for missing values, text that is not a number, and infinities.
+    """
+    out = parse_numbers(_as_text(values))
+    out[~np.isfinite(out)] = np.nan
     return out
 
 
-def _parse_sample(raw: np.ndarray) -> np.ndarray:
-    values = parse_numbers(pa.array([v if v is None else str(v) for v in raw],
-                                    type=pa.large_string()))
-    values[~np.isfinite(values)] = np.nan
-    return values
+def text_as_booleans(values) -> np.ndarray:
+    """True/false text (true/false, yes/no, t/f, y/n, 1/0, any case) as 1.0 / 0.0.
+
+    Parameters
+    ----------
+    values : array-like of shape (n,)
+
+    Returns
+    -------
+    ndarray of shape (n,) of float64
+        NaN for missing values and for text that is neither true nor false.
+    """
+    low = pd.Series(_as_text(values).to_pylist(), dtype=object).str.strip().str.lower()
+    return np.where(low.isin(_TRUE), 1.0, np.where(low.isin(_FALSE), 0.0, np.nan))
 
 
 def _looks_like_dates(raw: np.ndarray) -> bool:
@@ -457,7 +560,7 @@ def _target(s: Scan, t: int, task: str | None):
                                 "regression target")
         if not moments[2] > 0:
             raise BadInputError(f"target column {name!r} is constant")
-        y = raw.astype(float) if s.kinds[t] == NUMBER else _parse_sample(raw)
+        y = raw.astype(float) if s.kinds[t] == NUMBER else text_as_numbers(raw)
         y = np.where(np.isfinite(y), y, np.nan)
         return y, 0, np.zeros(0), moments, zeros, missing, task
     if counter.overflowed:

@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 
 from warmstart.fingerprint.catalogue import group, meta_feature, reduce_or_nan
-from warmstart.fingerprint.frontend import standardised
+from warmstart.fingerprint.design_matrix import standardised
 from warmstart.fingerprint.profile import DatasetProfile
 
 STRUCTURE = group("structure", "Correlation and principal components of numeric columns")
