@@ -26,8 +26,8 @@ from typing import Any
 
 from warmstart.backtest import DEFAULT_KS, BacktestResult
 from warmstart.errors import BadInputError, NothingToSuggestError
-from warmstart.fingerprint import Fingerprint, fingerprint
-from warmstart.history import LoggedStudy
+from warmstart.fingerprint import Fingerprint
+from warmstart.history import LoggedStudy, query_fingerprint
 from warmstart.io import read_json_file
 from warmstart.maintenance import CheckReport
 from warmstart.service import wire
@@ -245,19 +245,6 @@ class Client:
 
     def import_(self, file):
         self._directory_only("kb import")
-
-
-def query_fingerprint(data, target, task, fingerprint_of) -> Fingerprint:
-    """The query fingerprint, computed on this machine exactly as the directory would."""
-    if fingerprint_of is not None:
-        fp = (fingerprint_of if isinstance(fingerprint_of, Fingerprint)
-              else Fingerprint.from_json_file(fingerprint_of))
-        if task is not None and task != fp.task:
-            raise BadInputError(f"the fingerprint is for {fp.task}, not {task}")
-        return fp
-    if data is None or target is None:
-        raise BadInputError("give the dataset and its target, or a fingerprint")
-    return fingerprint(data, target=target, task=task)
 
 
 def _space_spec(space) -> list | None:
