@@ -6,32 +6,151 @@ Command modules import from here (and from :mod:`cli.output`), never from
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import sys
+import warnings
+from collections.abc import Iterator
 from pathlib import Path
 
 import click
+import numpy as np
 
 from warmstart.errors import BadInputError, WarmstartError
 from warmstart.families import TASKS
 from warmstart.history import ENV_VAR, KnowledgeBase, resolve_path
+from warmstart.metrics import MAXIMIZE, MINIMIZE
 
 TASK = click.Choice(list(TASKS))
 EXIT_INTERRUPTED = 130  # 128 + SIGINT, what shells report for Ctrl-C
 
 
+EXIT_BAD_INPUT = 2
+PATH_SHOWN = 80  # characters of a path an error message shows (a path may be 5,000 long)
+
+
+def short_path(path: object) -> str:
+    """A path for a one-line message: long ones keep their start and end."""
+    text = str(path)
+    if len(text) <= PATH_SHOWN:
+        return text
+    return f"{text[:40]}...{text[-30:]} ({len(text)} characters)"
+
+
+def os_error_message(exc: OSError) -> str:
+    """``OSError`` as one line: what went wrong and on which path, never a traceback."""
+    reason = exc.strerror or str(exc) or type(exc).__name__
+    if exc.filename is None:
+        return reason
+    where = short_path(exc.filename)
+    if exc.filename2 is not None:
+        where += f" -> {short_path(exc.filename2)}"
+    return f"{reason}: {where}"
+
+
+def first_line(exc: BaseException) -> str:
+    """The first line of an exception's message, or its type when it has none."""
+    text = str(exc).strip()
+    return text.splitlines()[0] if text else type(exc).__name__
+
+
+@contextlib.contextmanager
+def quiet_numpy() -> Iterator[None]:
+    """Keep numpy's floating-point warnings off stderr: overflow on extreme values is
+    handled by the code (NaN where a value is undefined), not something to read."""
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        yield
+
+
 def handle_errors(func):
-    """Turn library errors into a one-line message and the error's exit code."""
+    """Turn errors from the user's input into one ``error:`` line and an exit code.
+
+    The library's own errors keep their exit code (2 bad input, 1 nothing to answer
+    with). An ``OSError`` (a path too long, a file not readable, a place not writable),
+    ``ValueError`` or ``TypeError`` that escaped the library's checks is reported the
+    same way with exit 2: the user sees what was wrong, never a traceback.
+    """
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
         try:
-            return func(*args, **kwargs)
+            with quiet_numpy():
+                return func(*args, **kwargs)
         except WarmstartError as exc:
-            click.echo(f"error: {exc}", err=True)
-            sys.exit(exc.exit_code)
+            fail(str(exc), exc.exit_code)
+        except OSError as exc:
+            fail(os_error_message(exc))
+        except (ValueError, TypeError) as exc:
+            fail(first_line(exc))
 
     return wrapper
+
+
+def fail(message: str, code: int = EXIT_BAD_INPUT) -> None:
+    """Print ``error: message`` on stderr and exit with ``code``."""
+    click.echo(f"error: {message}", err=True)
+    sys.exit(code)
+
+
+class OneLineUsageError(click.ClickException):
+    """A click usage error shown as one ``error:`` line naming the command's --help."""
+
+    exit_code = EXIT_BAD_INPUT
+
+    def show(self, file=None) -> None:
+        click.echo(f"error: {self.format_message()}", err=True)
+
+
+@contextlib.contextmanager
+def one_line_usage() -> Iterator[None]:
+    """Re-raise click's usage errors (``-k 0``, ``--budget abc``) as one line."""
+    try:
+        yield
+    except click.UsageError as exc:
+        where = exc.ctx.command_path if exc.ctx is not None else "warmstart"
+        raise OneLineUsageError(
+            f"{exc.format_message()} (see '{where} --help')") from None
+
+
+class CommandGroup(click.Group):
+    """A command group whose usage errors, its own and its commands', are one line."""
+
+    def parse_args(self, ctx: click.Context, args: list[str]) -> list[str]:
+        with one_line_usage():
+            return super().parse_args(ctx, args)
+
+    def invoke(self, ctx: click.Context):
+        with one_line_usage():
+            return super().invoke(ctx)
+
+
+def direction_options(func):
+    """``--lower-is-better`` / ``--higher-is-better`` as ``direction``; both is an error."""
+
+    def record(ctx: click.Context, param: click.Parameter, value: bool) -> bool:
+        if value:
+            ctx.meta.setdefault("warmstart_directions", set()).add(param.name)
+            if len(ctx.meta["warmstart_directions"]) > 1:
+                raise click.UsageError("--higher-is-better and --lower-is-better "
+                                       "contradict each other: give one", ctx=ctx)
+        return value
+
+    def join(func):
+        @functools.wraps(func)
+        def wrapper(*args, lower_is_better=False, higher_is_better=False, **kwargs):
+            kwargs["direction"] = (MINIMIZE if lower_is_better else
+                                   MAXIMIZE if higher_is_better else None)
+            return func(*args, **kwargs)
+        return wrapper
+
+    func = join(func)
+    func = click.option("--higher-is-better", is_flag=True, callback=record,
+                        help="The metric is a score (needed for names scikit-learn "
+                             "does not know).")(func)
+    return click.option("--lower-is-better", is_flag=True, callback=record,
+                        help="The metric is a loss (needed for names scikit-learn "
+                             "does not know).")(func)
 
 
 def kb_option(func):

@@ -10,6 +10,7 @@ import warmstart
 from cli.common import (
     TASK,
     data_options,
+    direction_options,
     dataset_input,
     family_option,
     handle_errors,
@@ -20,7 +21,6 @@ from cli.common import (
 )
 from cli.output import emit_json, fmt, table
 from warmstart.fingerprint import CATALOGUE_VERSION, GROUPS
-from warmstart.metrics import MAXIMIZE, MINIMIZE
 from warmstart.strategies import DEFAULT_STRATEGY, STRATEGIES
 
 
@@ -80,10 +80,7 @@ def _echo_catalogue(as_json: bool) -> None:
               help="Trials table: CSV, Parquet or JSON lines, one row per trial.")
 @click.option("--metric", default=None,
               help="scikit-learn scorer name [default: balanced_accuracy or r2].")
-@click.option("--lower-is-better", "direction", flag_value=MINIMIZE, default=None,
-              help="The metric is a loss (needed for names scikit-learn does not know).")
-@click.option("--higher-is-better", "direction", flag_value=MAXIMIZE,
-              help="The metric is a score (needed for names scikit-learn does not know).")
+@direction_options
 @click.option("--name", default=None, help="Label for the study [default: file name].")
 @kb_option
 @json_option

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import os
+import stat
 from collections.abc import Callable, Iterator
 from pathlib import Path
 
@@ -21,9 +22,11 @@ JSONL_SUFFIXES = (".jsonl", ".ndjson")
 def is_parquet(path: str | os.PathLike) -> bool:
     """Whether ``path`` holds Parquet (by its magic bytes, whatever its name)."""
     try:
+        if not stat.S_ISREG(os.stat(path).st_mode):
+            return False  # opening a FIFO would block: read_table refuses it
         with open(path, "rb") as fh:
             return fh.read(4) == b"PAR1"
-    except OSError:
+    except (OSError, ValueError):
         return False
 
 
@@ -34,11 +37,8 @@ def read_table(path: str | os.PathLike) -> pd.DataFrame:
     undecodable or malformed file, or one with duplicate column names.
     """
     p = Path(path)
-    if not p.exists():
-        raise BadInputError(f"file not found: {p}")
-    if p.is_dir():
-        raise BadInputError(f"expected a file, got a directory: {p}")
-    if p.stat().st_size == 0:
+    size = regular_file(p).st_size
+    if size == 0:
         raise BadInputError(f"file is empty: {p}")
     try:
         if is_parquet(p):
@@ -53,6 +53,8 @@ def read_table(path: str | os.PathLike) -> pd.DataFrame:
         raise
     except UnicodeDecodeError:
         raise BadInputError(f"{p} is not UTF-8 text (undecodable bytes)") from None
+    except OSError as exc:
+        raise BadInputError(f"could not read {p}: {exc.strerror or exc}") from None
     except (pd.errors.ParserError, pd.errors.EmptyDataError, pa.ArrowException,
             ValueError) as exc:
         reason = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
@@ -63,6 +65,35 @@ def read_table(path: str | os.PathLike) -> pd.DataFrame:
     return df
 
 
+def shown(path: str | os.PathLike) -> str:
+    """A path for a one-line message: a very long one keeps its start and end."""
+    text = str(path)
+    return text if len(text) <= 80 else f"{text[:40]}...{text[-30:]} ({len(text)} characters)"
+
+
+def regular_file(path: str | os.PathLike, what: str = "file") -> os.stat_result:
+    """``stat`` of ``path``, refusing anything that is not a regular file.
+
+    A FIFO, socket or device would block or never end when read, so it is refused
+    before it is opened; so is a path the system cannot look up (too long, a file
+    used as a folder, not permitted). Raises :class:`BadInputError` with one line.
+    """
+    try:
+        st = os.stat(path)
+    except FileNotFoundError:
+        raise BadInputError(f"{what} not found: {shown(path)}") from None
+    except OSError as exc:
+        raise BadInputError(f"cannot use {what} {shown(path)}: {exc.strerror or exc}"
+                            ) from None
+    if stat.S_ISDIR(st.st_mode):
+        raise BadInputError(f"expected a {what}, got a directory: {shown(path)}")
+    if not stat.S_ISREG(st.st_mode):
+        kind = ("a named pipe (FIFO)" if stat.S_ISFIFO(st.st_mode) else
+                "a socket" if stat.S_ISSOCK(st.st_mode) else "a device")
+        raise BadInputError(f"{shown(path)} is {kind}, not a regular file")
+    return st
+
+
 def _read_csv(p: Path) -> pd.DataFrame:
     sep = "\t" if p.suffix.lower() == ".tsv" else ","
     with open(p, "rb") as fh:
@@ -70,8 +101,10 @@ def _read_csv(p: Path) -> pd.DataFrame:
     if b"\x00" in head:
         raise BadInputError(f"{p} is not a text table (it contains NUL bytes)")
     sep = _delimiter(head, sep)
-    # pandas silently renames duplicate headers (a, a.1): read the header row raw.
-    raw = pd.read_csv(p, sep=sep, header=None, nrows=1, encoding="utf-8", dtype=str)
+    # pandas silently renames duplicate headers (a, a.1): read the header row raw, and
+    # literally: headers "NA", "null" and "nan" are column names, not missing values.
+    raw = pd.read_csv(p, sep=sep, header=None, nrows=1, encoding="utf-8", dtype=str,
+                      keep_default_na=False, na_filter=False)
     names = [str(x) for x in raw.iloc[0].tolist()]
     if len(set(names)) != len(names):
         dupes = sorted({n for n in names if names.count(n) > 1})
@@ -130,6 +163,7 @@ def open_parquet(path: str | os.PathLike, batch_rows: int = 65536
 
 def read_json_file(path: str | os.PathLike, what: str):
     """Load a JSON file, raising :class:`BadInputError` naming ``what`` it should be."""
+    regular_file(path, f"{what} file")
     try:
         with open(path, encoding="utf-8") as fh:
             return json.load(fh)
@@ -139,3 +173,5 @@ def read_json_file(path: str | os.PathLike, what: str):
         raise BadInputError(f"{what} file {path} is a directory") from None
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
         raise BadInputError(f"{what} file {path} is not valid JSON: {exc}") from None
+    except OSError as exc:
+        raise BadInputError(f"{what} file {shown(path)}: {exc.strerror or exc}") from None

@@ -558,7 +558,9 @@ def _target(s: Scan, t: int, task: str | None):
         if not numeric_ok:
             raise BadInputError(f"target column {name!r} is not numeric, so it cannot be a "
                                 "regression target")
-        if not moments[2] > 0:
+        # A range test, not the variance: the sum of squares of values near 1e307
+        # overflows, and uint64 values near 2**64 lose their spread as floats.
+        if s.column_distinct(t)[0] < 2:
             raise BadInputError(f"target column {name!r} is constant")
         y = raw.astype(float) if s.kinds[t] == NUMBER else text_as_numbers(raw)
         y = np.where(np.isfinite(y), y, np.nan)
