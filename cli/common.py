@@ -19,6 +19,7 @@ import numpy as np
 from warmstart.errors import BadInputError, WarmstartError
 from warmstart.families import TASKS
 from warmstart.history import ENV_VAR, KnowledgeBase, resolve_path
+from warmstart.io import shown
 from warmstart.metrics import MAXIMIZE, MINIMIZE
 
 TASK = click.Choice(list(TASKS))
@@ -26,15 +27,6 @@ EXIT_INTERRUPTED = 130  # 128 + SIGINT, what shells report for Ctrl-C
 
 
 EXIT_BAD_INPUT = 2
-PATH_SHOWN = 80  # characters of a path an error message shows (a path may be 5,000 long)
-
-
-def short_path(path: object) -> str:
-    """A path for a one-line message: long ones keep their start and end."""
-    text = str(path)
-    if len(text) <= PATH_SHOWN:
-        return text
-    return f"{text[:40]}...{text[-30:]} ({len(text)} characters)"
 
 
 def os_error_message(exc: OSError) -> str:
@@ -42,9 +34,9 @@ def os_error_message(exc: OSError) -> str:
     reason = exc.strerror or str(exc) or type(exc).__name__
     if exc.filename is None:
         return reason
-    where = short_path(exc.filename)
+    where = shown(exc.filename)
     if exc.filename2 is not None:
-        where += f" -> {short_path(exc.filename2)}"
+        where += f" -> {shown(exc.filename2)}"
     return f"{reason}: {where}"
 
 

@@ -10,8 +10,8 @@ import warmstart
 from cli.common import (
     TASK,
     data_options,
-    direction_options,
     dataset_input,
+    direction_options,
     family_option,
     handle_errors,
     json_option,
