@@ -28,8 +28,10 @@ seeds and their regret averaged per dataset.
 
 from __future__ import annotations
 
+import importlib.util
 import json
 import math
+import os
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
@@ -40,6 +42,7 @@ import pandas as pd
 from warmstart.errors import BadInputError
 from warmstart.families import get_family
 from warmstart.fingerprint import Fingerprint
+from warmstart.io import check_writable
 from warmstart.metrics import DEFAULT_METRIC, MINIMIZE
 from warmstart.similarity import nearest
 from warmstart.spaces import SearchSpace
@@ -344,6 +347,21 @@ def _regret_curve(values: np.ndarray, best: float, median: float,
     return (best - at) / (best - median)
 
 
+def check_plot_output(path: str | os.PathLike) -> None:
+    """Refuse a plot that could not be written (no matplotlib, an unwritable place)
+    before the backtest runs. Raises :class:`BadInputError`."""
+    if importlib.util.find_spec("matplotlib") is None:
+        raise BadInputError("plotting needs matplotlib; install it with "
+                            "pip install 'warmstart[plot]'")
+    check_writable(path, "the plot")
+
+
+# Coinciding curves (two strategies with the same regret) must stay visible: each
+# strategy gets its own dash pattern and marker, and earlier ones are drawn wider.
+_LINE_STYLES = ("-", "--", "-.", ":")
+_MARKERS = ("o", "s", "^", "D", "v", "x")
+
+
 def plot_regret(result: BacktestResult, path, title: str | None = None) -> None:
     """Save a plot of mean regret against k per strategy (band: inter-quartile range).
 
@@ -359,11 +377,15 @@ def plot_regret(result: BacktestResult, path, title: str | None = None) -> None:
                             "pip install 'warmstart[plot]'") from None
     summary = pd.DataFrame(result.summary())
     fig, ax = plt.subplots(figsize=(6.4, 4.2))
-    for s in result.strategies:
+    n = len(result.strategies)
+    for i, s in enumerate(result.strategies):
         d = summary[summary["strategy"] == s].sort_values("k")
         if d["mean_regret"].isna().all():
             continue
-        line, = ax.plot(d["k"], d["mean_regret"], marker="o", label=s)
+        line, = ax.plot(d["k"], d["mean_regret"], label=s,
+                        linestyle=_LINE_STYLES[i % len(_LINE_STYLES)],
+                        marker=_MARKERS[i % len(_MARKERS)], markerfacecolor="none",
+                        linewidth=1.2 + 1.5 * (n - 1 - i) / max(n - 1, 1), zorder=2 + i)
         ax.fill_between(d["k"], d["q25"].astype(float), d["q75"].astype(float),
                         color=line.get_color(), alpha=0.12)
     ax.set_xlabel("k (configurations tried)")
@@ -381,4 +403,5 @@ def plot_regret(result: BacktestResult, path, title: str | None = None) -> None:
         plt.close(fig)
 
 
-__all__ = ["DEFAULT_KS", "BacktestResult", "backtest", "backtest_tables", "plot_regret"]
+__all__ = ["DEFAULT_KS", "BacktestResult", "backtest", "backtest_tables", "check_plot_output",
+           "plot_regret"]

@@ -175,3 +175,27 @@ def read_json_file(path: str | os.PathLike, what: str):
         raise BadInputError(f"{what} file {path} is not valid JSON: {exc}") from None
     except OSError as exc:
         raise BadInputError(f"{what} file {shown(path)}: {exc.strerror or exc}") from None
+
+
+def check_writable(path: str | os.PathLike, what: str) -> Path:
+    """Refuse an output path that cannot be written, before any work is done.
+
+    ``path`` must not be a directory and its folder must exist and accept a new file:
+    a hidden probe file is created there and removed (permission bits alone say nothing
+    for root or on network filesystems). Raises :class:`BadInputError` naming ``what``.
+    """
+    p = Path(path)
+    try:
+        if p.is_dir():
+            raise BadInputError(f"{what} {shown(p)} is a directory; give a file name")
+        folder = p.parent
+        if not folder.is_dir():
+            raise BadInputError(f"cannot write {what} {shown(p)}: folder "
+                                f"{shown(folder)} does not exist")
+        probe = folder / f".warmstart-probe-{os.getpid()}"
+        os.close(os.open(probe, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600))
+        os.unlink(probe)
+    except OSError as exc:
+        raise BadInputError(f"cannot write {what} {shown(p)}: {exc.strerror or exc}"
+                            ) from None
+    return p

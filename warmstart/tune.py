@@ -44,6 +44,7 @@ from warmstart.errors import BadInputError, NothingToSuggestError
 from warmstart.families import Family, get_family
 from warmstart.fingerprint import Fingerprint, fingerprint, load_frame
 from warmstart.history import KnowledgeBase, LoggedStudy
+from warmstart.io import check_writable
 from warmstart.metrics import DEFAULT_METRIC, resolve_metric
 from warmstart.pipelines import make_pipeline
 from warmstart.spaces import SearchSpace, config_key
@@ -225,6 +226,8 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
     fam = _check_arguments(family, budget, cv, jobs, time_limit, search, warm_start)
     if log and kb is not None:
         kb._check_writable()
+    if out is not None:  # before any trial: a study must not end in "cannot write"
+        check_writable(out, "the best configuration (out)")
     df, fp, scoring = _load(data, target, task, metric)
     space = fam.space(fp.task) if space is None else user_space(space, fam, fp.task)
     notes: list[str] = []
