@@ -16,8 +16,10 @@ from pathlib import Path
 import click
 import numpy as np
 
+from cli.output import FULL_WIDTH
 from warmstart.errors import BadInputError, WarmstartError
 from warmstart.families import TASKS
+from warmstart.fingerprint import Fingerprint, fingerprint
 from warmstart.history import ENV_VAR, KnowledgeBase, resolve_path
 from warmstart.io import shown
 from warmstart.metrics import MAXIMIZE, MINIMIZE
@@ -113,6 +115,7 @@ class CommandGroup(click.Group):
             return super().parse_args(ctx, args)
 
     def invoke(self, ctx: click.Context):
+        FULL_WIDTH["on"] = False  # --wide lasts one command (tests run many in a process)
         with one_line_usage():
             return super().invoke(ctx)
 
@@ -152,6 +155,10 @@ def kb_option(func):
 
 
 def json_option(func):
+    """``--json`` for machines, and ``--wide`` for tables wider than the terminal."""
+    func = click.option("--wide", is_flag=True, expose_value=False,
+                        callback=lambda ctx, param, value: FULL_WIDTH.update(on=value),
+                        help="Do not cut tables to the terminal's width.")(func)
     return click.option("--json", "as_json", is_flag=True, help="Print JSON.")(func)
 
 
@@ -184,6 +191,21 @@ def dataset_input(data, target, fingerprint_file) -> Path | None:
     """DATA as the library takes it: None when a --fingerprint file stands in for it."""
     need_data(data, target, fingerprint_file)
     return data if fingerprint_file is None else None
+
+
+def query_fingerprint(data, target, task, fingerprint_file) -> Fingerprint:
+    """The fingerprint a command compares: read from --fingerprint, else of DATA."""
+    need_data(data, target, fingerprint_file)
+    if fingerprint_file is not None:
+        return Fingerprint.from_json_file(fingerprint_file)
+    return fingerprint(data, target=target, task=task)
+
+
+def task_line(fp: Fingerprint, task: str | None, fingerprint_file) -> str:
+    """Which task the command works on, and where that came from."""
+    how = ("given with --task" if task is not None else "from the fingerprint file"
+           if fingerprint_file is not None else f"inferred from target {fp.target!r}")
+    return f"task: {fp.task} ({how})"
 
 
 def open_history(kb_path: Path | None) -> KnowledgeBase:

@@ -18,8 +18,11 @@ from cli.common import (
     kb_option,
     need_data,
     open_history,
+    query_fingerprint,
+    task_line,
 )
-from cli.output import emit_json, fmt, table
+from cli.output import emit_json, fmt, plural, table
+from warmstart.errors import NothingToSuggestError
 from warmstart.fingerprint import CATALOGUE_VERSION, GROUPS
 from warmstart.strategies import DEFAULT_STRATEGY, STRATEGIES
 
@@ -111,22 +114,27 @@ def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, d
 @handle_errors
 def similar_cmd(data, target, task, fingerprint_file, k, kb_path, as_json) -> None:
     """Show the past datasets most similar to DATA, and why."""
-    data = dataset_input(data, target, fingerprint_file)
-    found = open_history(kb_path).similar(data, target=target, k=k, task=task,
-                                          fingerprint_of=fingerprint_file)
+    kb = open_history(kb_path)
+    fp = query_fingerprint(data, target, task, fingerprint_file)
+    found = kb.similar(target=target, k=k, task=task, fingerprint_of=fp)
+    if not found:
+        raise NothingToSuggestError(
+            f"nothing to compare with: the history at {kb.path} has no {fp.task} dataset "
+            f"yet; fill it with 'warmstart log' (a finished study) or 'warmstart tune'")
     if as_json:
         emit_json([n.to_dict() for n in found])
         return
-    if not found:
-        click.echo("the history has no dataset of this task yet")
-        return
+    click.echo(task_line(fp, task, fingerprint_file))
     rows = []
     for i, n in enumerate(found, 1):
         agree = ", ".join(f"{m}" for m, _, _ in n.agree)
         differ = ", ".join(f"{m} ({fmt(a)} vs {fmt(b)})" for m, a, b in n.differ)
-        rows.append([i, n.name, n.distance, n.similarity, agree, differ or "-"])
+        rows.append([i, n.name, n.distance, n.similarity, agree, differ or "(none)"])
     click.echo(table(rows, ["#", "dataset", "distance", "similarity", "agrees most on",
                             "differs most on (this vs it)"], align="rlrrll"))
+    if len(found) < k:
+        click.echo(f"only {plural(len(found), fp.task + ' dataset')} in the history "
+                   f"(asked for {k})")
 
 
 # -- suggest ----------------------------------------------------------------------------
@@ -151,18 +159,23 @@ def similar_cmd(data, target, task, fingerprint_file, k, kb_path, as_json) -> No
 def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strategy,
                 space_file, max_fit_seconds, seed, kb_path, as_json) -> None:
     """Suggest starting configurations for FAMILY on DATA."""
-    data = dataset_input(data, target, fingerprint_file)
-    found = open_history(kb_path).suggest(
-        data, target=target, family=family, k=k, task=task, metric=metric,
+    kb = open_history(kb_path)
+    fp = query_fingerprint(data, target, task, fingerprint_file)
+    found = kb.suggest(
+        target=target, family=family, k=k, task=task, metric=metric,
         strategy=strategy, space=space_file, max_fit_seconds=max_fit_seconds, seed=seed,
-        fingerprint_of=fingerprint_file)
+        fingerprint_of=fp)
     if as_json:
         emit_json([s.to_dict() for s in found])
         return
-    click.echo(f"{len(found)} starting configurations for {family} "
-               f"({found[0].strategy}, metric {found[0].metric or metric or 'default'}); "
+    click.echo(task_line(fp, task, fingerprint_file))
+    used = found[0].metric or metric
+    click.echo(f"{plural(len(found), 'starting configuration')} for {family} "
+               f"({found[0].strategy}" + (f", metric {used}" if used else "") + "); "
                "norm. score: 1 = best trial of its study")
     _echo_suggestions(found)
+    click.echo("distance: scaled over the datasets with a study of this family, so it can "
+               "differ from 'similar', which scales over every dataset of the task")
     click.echo("Starting points only: validate the tuned model on held-out data.")
 
 
@@ -180,3 +193,6 @@ def _echo_suggestions(found) -> None:
     if pooled:
         click.echo("expected: similarity-weighted mean norm. score over the nearest datasets "
                    "(* = partly predicted by surrogates)")
+    if any(s.source_name is None or s.expected_fit_seconds is None for s in found):
+        click.echo("-: none (a configuration not taken from a past study has no source, "
+                   "distance or score; a fit time without past fits is not estimated)")
