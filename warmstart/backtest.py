@@ -39,7 +39,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from warmstart.errors import BadInputError
+from warmstart.errors import BadInputError, NothingToSuggestError
 from warmstart.families import get_family
 from warmstart.fingerprint import Fingerprint
 from warmstart.io import check_writable
@@ -230,8 +230,10 @@ def backtest_tables(tables: dict[str, pd.DataFrame], fingerprints: dict[str, Fin
         metrics[task] = m
         plan.append((task, st))
     if not plan:
-        raise BadInputError(f"backtesting {fam.name!r} needs at least two datasets with a "
-                            "study of it (same task and metric) in the history")
+        raise NothingToSuggestError(
+            f"nothing to compare with: backtesting {fam.name!r} needs at least two "
+            "datasets with a study of it (same task and metric) in the history; fill it "
+            "with 'warmstart log' (finished studies) or 'warmstart tune'")
     jobs = []
     for task, st in plan:
         truth = prepare_trials(tables["trials"], st)
@@ -347,12 +349,14 @@ def _regret_curve(values: np.ndarray, best: float, median: float,
     return (best - at) / (best - median)
 
 
+_NO_MATPLOTLIB = "plotting needs matplotlib; install it with pip install 'warmstart[plot]'"
+
+
 def check_plot_output(path: str | os.PathLike) -> None:
     """Refuse a plot that could not be written (no matplotlib, an unwritable place)
     before the backtest runs. Raises :class:`BadInputError`."""
     if importlib.util.find_spec("matplotlib") is None:
-        raise BadInputError("plotting needs matplotlib; install it with "
-                            "pip install 'warmstart[plot]'")
+        raise BadInputError(_NO_MATPLOTLIB)
     check_writable(path, "the plot")
 
 
@@ -373,8 +377,7 @@ def plot_regret(result: BacktestResult, path, title: str | None = None) -> None:
         matplotlib.use("Agg")
         import matplotlib.pyplot as plt
     except ImportError:
-        raise BadInputError("plotting needs matplotlib; install it with "
-                            "pip install 'warmstart[plot]'") from None
+        raise BadInputError(_NO_MATPLOTLIB) from None
     summary = pd.DataFrame(result.summary())
     fig, ax = plt.subplots(figsize=(6.4, 4.2))
     n = len(result.strategies)
