@@ -10,7 +10,6 @@ import warmstart
 from cli.common import (
     TASK,
     data_options,
-    dataset_input,
     direction_options,
     family_option,
     handle_errors,
@@ -91,10 +90,15 @@ def _echo_catalogue(as_json: bool) -> None:
 def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, direction,
             name, kb_path, as_json) -> None:
     """Log a finished study (its trials) into the team history."""
-    data = dataset_input(data, target, fingerprint_file)
-    study = open_history(kb_path).log(
-        data, target=target, family=family, trials=trials_file, metric=metric,
-        direction=direction, name=name, fingerprint_of=fingerprint_file, task=task)
+    kb = open_history(kb_path)
+    fp = query_fingerprint(data, target, task, fingerprint_file)
+    study = kb.log(
+        target=target, family=family, trials=trials_file, metric=metric,
+        direction=direction, fingerprint_of=fp, task=task,
+        # the file's name labels the study, as when the library reads DATA itself
+        name=name or (Path(data).stem if fingerprint_file is None else None))
+    for w in fp.warnings:
+        click.echo(f"warning: {w}", err=True)
     if as_json:
         emit_json(study.to_dict())
         return
