@@ -18,7 +18,7 @@ import numpy as np
 
 from cli.output import FULL_WIDTH
 from warmstart.errors import BadInputError, WarmstartError
-from warmstart.families import TASKS
+from warmstart.families import FAMILIES, TASKS
 from warmstart.fingerprint import Fingerprint, fingerprint
 from warmstart.history import ENV_VAR, KnowledgeBase, resolve_path
 from warmstart.io import shown
@@ -164,7 +164,14 @@ def json_option(func):
 
 def family_option(func):
     return click.option("--family", "-f", required=True,
-                        help="Model family (see 'warmstart families').")(func)
+                        help=f"Model family: {', '.join(FAMILIES)} (their spaces: "
+                             "'warmstart families').")(func)
+
+
+SPACE_HELP = ("JSON search-space file: a list of {\"name\": PARAMETER, \"low\": ..., "
+              "\"high\": ..., \"log\": true|false} or {\"name\": ..., \"choices\": [...]} "
+              "narrowing the family's declared space (example: "
+              "examples/space_random_forest.json) [default: the family's whole space].")
 
 
 def data_options(func):

@@ -8,6 +8,7 @@ import click
 
 import warmstart
 from cli.common import (
+    SPACE_HELP,
     TASK,
     data_options,
     direction_options,
@@ -79,7 +80,10 @@ def _echo_catalogue(as_json: bool) -> None:
 @data_options
 @family_option
 @click.option("--trials", "trials_file", required=True, type=click.Path(path_type=Path),
-              help="Trials table: CSV, Parquet or JSON lines, one row per trial.")
+              help="Trials table (CSV, Parquet or JSON lines), one row per trial: a column "
+                   "per hyperparameter named as the estimator's keyword (blank = its "
+                   "default), 'score' (required), and optional 'fit_seconds', 'status' "
+                   "(ok | failed [default: ok]) and 'error'.")
 @click.option("--metric", default=None,
               help="scikit-learn scorer name [default: balanced_accuracy or r2].")
 @direction_options
@@ -151,10 +155,11 @@ def similar_cmd(data, target, task, fingerprint_file, k, kb_path, as_json) -> No
 @click.option("--strategy", "-s", default=None,
               help=f"Ranking strategy: {', '.join(STRATEGIES)} [default: {DEFAULT_STRATEGY}].")
 @click.option("--space", "space_file", type=click.Path(path_type=Path), default=None,
-              help="JSON search-space file restricting the suggestions (values outside "
-                   "are clipped; categorical values outside drop the configuration).")
+              help=SPACE_HELP + " Values outside are clipped; categorical values "
+                   "outside drop the configuration.")
 @click.option("--max-fit-seconds", type=click.FloatRange(min=0), default=None,
-              help="Drop suggestions expected to take longer to fit on DATA.")
+              help="Drop suggestions expected to take longer to fit on DATA [default: "
+                   "no limit].")
 @click.option("--seed", type=int, default=0, show_default=True,
               help="Seed for strategies that draw at random.")
 @kb_option

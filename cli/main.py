@@ -16,6 +16,7 @@ import warmstart
 from cli.backtest import backtest_cmd
 from cli.common import CommandGroup
 from cli.dataset_commands import fingerprint_cmd, log_cmd, similar_cmd, suggest_cmd
+from cli.examples import attach_examples
 from cli.families import families_cmd
 from cli.kb import kb_group
 from cli.tune import tune_cmd
@@ -30,6 +31,7 @@ def main() -> None:
 for _command in (families_cmd, fingerprint_cmd, log_cmd, similar_cmd, suggest_cmd,
                  backtest_cmd, tune_cmd, kb_group):
     main.add_command(_command)
+attach_examples(main)
 
 if __name__ == "__main__":  # pragma: no cover
     main()

@@ -45,7 +45,8 @@ def fmt(value: Any) -> str:
             return f"{value:.3g}"
         return f"{value:.4g}"
     if isinstance(value, dict):
-        return ", ".join(f"{k}={fmt(v)}" for k, v in value.items())
+        # inside a configuration None is a value the user can type (max_depth=None)
+        return ", ".join(f"{k}={'None' if v is None else fmt(v)}" for k, v in value.items())
     return str(value)
 
 

@@ -9,6 +9,7 @@ import click
 
 from cli.common import (
     EXIT_INTERRUPTED,
+    SPACE_HELP,
     TASK,
     family_option,
     handle_errors,
@@ -34,21 +35,23 @@ from warmstart.tune import GP_EI, SEARCHES, TuneResult, tune
 @click.option("--jobs", "-j", default=1, show_default=True, type=int,
               help="Folds fitted in parallel (-1: all cores).")
 @click.option("--time-limit", type=float, default=None,
-              help="Seconds; no new trial starts after this.")
+              help="Seconds; no new trial starts after this [default: no limit].")
 @click.option("--search", type=click.Choice(SEARCHES), default=GP_EI, show_default=True,
               help="What proposes trials after the warm start.")
 @click.option("--warm-start", "warm_start", type=int, default=None,
               help="Suggestions to evaluate first [default: min(5, budget // 2)].")
 @click.option("--strategy", "-s", default=None,
-              help="Ranking strategy of the warm-start suggestions (see 'suggest').")
+              help="Ranking strategy of the warm-start suggestions (see 'suggest') "
+                   "[default: the suggest default].")
 @click.option("--space", "space_file", type=click.Path(path_type=Path), default=None,
-              help="JSON search-space file narrowing the family's space.")
+              help=SPACE_HELP)
 @click.option("--max-fit-seconds", type=click.FloatRange(min=0), default=None,
               help="Leave out warm-start suggestions expected to take longer to fit on "
                    "DATA [default: no limit].")
 @click.option("--no-log", "no_log", is_flag=True, help="Do not log the study.")
 @click.option("--out", type=click.Path(path_type=Path), default=None,
-              help="Write the best configuration as JSON to this file.")
+              help="Write the best configuration as JSON to this file (checked before "
+                   "any trial) [default: not written].")
 @click.option("--name", default=None, help="Label for the study [default: file name].")
 @click.option("--task", type=TASK, default=None, help="Override the inferred task.")
 @click.option("--progress/--no-progress", default=None,
