@@ -102,7 +102,9 @@ def one_line_usage() -> Iterator[None]:
     try:
         yield
     except click.UsageError as exc:
-        where = exc.ctx.command_path if exc.ctx is not None else "warmstart"
+        # the program is "warmstart" however it was started (script, python -m, tests)
+        words = exc.ctx.command_path.split()[1:] if exc.ctx is not None else []
+        where = " ".join(["warmstart", *words])
         raise OneLineUsageError(
             f"{exc.format_message()} (see '{where} --help')") from None
 
