@@ -170,10 +170,13 @@ def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strateg
     """Suggest starting configurations for FAMILY on DATA."""
     kb = open_history(kb_path)
     fp = query_fingerprint(data, target, task, fingerprint_file)
-    found = kb.suggest(
-        target=target, family=family, k=k, task=task, metric=metric,
-        strategy=strategy, space=space_file, max_fit_seconds=max_fit_seconds, seed=seed,
-        fingerprint_of=fp)
+    try:
+        found = kb.suggest(
+            target=target, family=family, k=k, task=task, metric=metric,
+            strategy=strategy, space=space_file, max_fit_seconds=max_fit_seconds, seed=seed,
+            fingerprint_of=fp)
+    except NothingToSuggestError as exc:  # worded like similar's and backtest's
+        raise NothingToSuggestError(f"nothing to compare with: {exc}") from None
     if as_json:
         emit_json([s.to_dict() for s in found])
         return
