@@ -270,8 +270,8 @@ def test_at_least_sixty_five_distinct_malformed_inputs(tmp_path, template):
 
         def content(arg: str, w=w) -> str:
             path = Path(arg)
-            if not path.is_relative_to(w.root):
-                return arg
+            if not path.is_relative_to(w.root) or len(path.name) > 255:
+                return arg  # a name too long to look up is its own content
             if path.is_file():
                 return "file " + hashlib.sha256(path.read_bytes()).hexdigest()
             return ("dir " if path.is_dir() else "absent ") + str(path.relative_to(w.root))
