@@ -79,8 +79,11 @@ def test_accepts_exactly_what_scikit_learn_accepts(family, task):
     # them (1.0 -> 1, 0 -> False) before scikit-learn decides.
     for name in fam.make_estimator(task, {}).get_params(deep=False):
         for value in PROBES:
-            _, why = rules.check(name, value)
-            assert (why is None) == sklearn_accepts(fam, task, name, value), (name, value)
+            stored, why = rules.check(name, value)
+            # a None the estimator refuses is read as "not set", not as an error
+            kept = why is None and (value is not None or stored is None)
+            assert kept == sklearn_accepts(fam, task, name, value), (name, value)
+            assert value is not None or why is None
 
 
 def test_refusal_carries_scikit_learns_message():
@@ -133,9 +136,13 @@ def test_empty_cells_follow_the_estimators_default():
         {"max_depth": None, "n_estimators": 100, "bootstrap": True},
         {"max_depth": 4, "max_features": 0.5, "bootstrap": False},
     ]
-    # an explicit None is the value None, default or not; a missing key is not set
+    # an explicit None is the value None where the estimator accepts it, default or not;
+    # a missing key is not set, and so is a null where None is no value (a JSON blank)
     assert configs([{"max_features": None, "score": 0.9}, {"max_features": 0.5, "score": 0.8},
                     {"score": 0.7}]) == [{"max_features": None}, {"max_features": 0.5}, {}]
+    assert not sklearn_accepts(HGB, "classification", "l2_regularization", None)
+    assert configs([{"l2_regularization": None, "max_depth": None, "score": 0.9}], HGB) == [
+        {"max_depth": None}]
 
 
 def test_whole_numbers_become_floats_only_where_integers_are_not_allowed():

@@ -227,6 +227,8 @@ class EstimatorRules:
         value = _cell_value(cell)
         if value is _BLANK:
             return (None if self.defaults.get(name) is None else _UNSET), None
+        if value is None and not self._accepts(name, None):
+            return _UNSET, None  # a null where None is no value: not set
         value, why = _json_value(value)
         if why:
             return None, f"parameter {name!r} = {_short(value)} cannot be stored as JSON ({why})"
@@ -401,7 +403,9 @@ def check_trials(trials: TrialsInput, family: Family, task: str,
     list of Trial
         Configurations hold the values as given (JSON types; a float-only parameter's
         whole number as a float). An empty cell is None where the estimator's default is
-        None, and otherwise leaves the parameter out (its default applies).
+        None, and otherwise leaves the parameter out (its default applies). An explicit
+        None (JSON null) is the value None where the estimator accepts None, and leaves
+        the parameter out where it does not.
 
     Raises :class:`BadInputError` listing every problem found (up to
     ``MAX_PROBLEM_LINES`` lines), each with the rows it is on, 1-based as a spreadsheet
