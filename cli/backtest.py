@@ -9,7 +9,7 @@ import click
 from cli.common import family_option, handle_errors, json_option, kb_option, open_history
 from cli.output import emit_json, fmt, table
 from cli.progress import CountProgressBar
-from warmstart.backtest import DEFAULT_KS, backtest, plot_regret
+from warmstart.backtest import DEFAULT_KS, backtest, check_plot_output, plot_regret
 from warmstart.errors import BadInputError
 from warmstart.strategies import STRATEGIES
 
@@ -47,6 +47,8 @@ def backtest_cmd(family, ks, strategies, metric, random_repeats, seed, plot_file
     Regret 0 = the list found the held-out dataset's best known configuration,
     1 = no better than its median trial.
     """
+    if plot_file is not None:
+        check_plot_output(plot_file)
     kb = open_history(kb_path)
     names = [s.strip() for s in strategies.split(",")] if strategies else None
     result = backtest(kb, family, _int_list(ks, "--ks"), names, metric=metric, seed=seed,

@@ -8,19 +8,22 @@ import click
 
 import warmstart
 from cli.common import (
+    SPACE_HELP,
     TASK,
     data_options,
-    dataset_input,
+    direction_options,
     family_option,
     handle_errors,
     json_option,
     kb_option,
     need_data,
     open_history,
+    query_fingerprint,
+    task_line,
 )
-from cli.output import emit_json, fmt, table
+from cli.output import emit_json, fmt, plural, table
+from warmstart.errors import NothingToSuggestError
 from warmstart.fingerprint import CATALOGUE_VERSION, GROUPS
-from warmstart.metrics import MAXIMIZE, MINIMIZE
 from warmstart.strategies import DEFAULT_STRATEGY, STRATEGIES
 
 
@@ -77,13 +80,13 @@ def _echo_catalogue(as_json: bool) -> None:
 @data_options
 @family_option
 @click.option("--trials", "trials_file", required=True, type=click.Path(path_type=Path),
-              help="Trials table: CSV, Parquet or JSON lines, one row per trial.")
+              help="Trials table (CSV, Parquet or JSON lines), one row per trial: a column "
+                   "per hyperparameter named as the estimator's keyword (blank = its "
+                   "default), 'score' (required), and optional 'fit_seconds', 'status' "
+                   "(ok | failed [default: ok]) and 'error'.")
 @click.option("--metric", default=None,
               help="scikit-learn scorer name [default: balanced_accuracy or r2].")
-@click.option("--lower-is-better", "direction", flag_value=MINIMIZE, default=None,
-              help="The metric is a loss (needed for names scikit-learn does not know).")
-@click.option("--higher-is-better", "direction", flag_value=MAXIMIZE,
-              help="The metric is a score (needed for names scikit-learn does not know).")
+@direction_options
 @click.option("--name", default=None, help="Label for the study [default: file name].")
 @kb_option
 @json_option
@@ -91,10 +94,15 @@ def _echo_catalogue(as_json: bool) -> None:
 def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, direction,
             name, kb_path, as_json) -> None:
     """Log a finished study (its trials) into the team history."""
-    data = dataset_input(data, target, fingerprint_file)
-    study = open_history(kb_path).log(
-        data, target=target, family=family, trials=trials_file, metric=metric,
-        direction=direction, name=name, fingerprint_of=fingerprint_file, task=task)
+    kb = open_history(kb_path)
+    fp = query_fingerprint(data, target, task, fingerprint_file)
+    study = kb.log(
+        target=target, family=family, trials=trials_file, metric=metric,
+        direction=direction, fingerprint_of=fp, task=task,
+        # the file's name labels the study, as when the library reads DATA itself
+        name=name or (Path(data).stem if fingerprint_file is None else None))
+    for w in fp.warnings:
+        click.echo(f"warning: {w}", err=True)
     if as_json:
         emit_json(study.to_dict())
         return
@@ -114,22 +122,27 @@ def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, d
 @handle_errors
 def similar_cmd(data, target, task, fingerprint_file, k, kb_path, as_json) -> None:
     """Show the past datasets most similar to DATA, and why."""
-    data = dataset_input(data, target, fingerprint_file)
-    found = open_history(kb_path).similar(data, target=target, k=k, task=task,
-                                          fingerprint_of=fingerprint_file)
+    kb = open_history(kb_path)
+    fp = query_fingerprint(data, target, task, fingerprint_file)
+    found = kb.similar(target=target, k=k, task=task, fingerprint_of=fp)
+    if not found:
+        raise NothingToSuggestError(
+            f"nothing to compare with: the history at {kb.path} has no {fp.task} dataset "
+            f"yet; fill it with 'warmstart log' (a finished study) or 'warmstart tune'")
     if as_json:
         emit_json([n.to_dict() for n in found])
         return
-    if not found:
-        click.echo("the history has no dataset of this task yet")
-        return
+    click.echo(task_line(fp, task, fingerprint_file))
     rows = []
     for i, n in enumerate(found, 1):
         agree = ", ".join(f"{m}" for m, _, _ in n.agree)
         differ = ", ".join(f"{m} ({fmt(a)} vs {fmt(b)})" for m, a, b in n.differ)
-        rows.append([i, n.name, n.distance, n.similarity, agree, differ or "-"])
+        rows.append([i, n.name, n.distance, n.similarity, agree, differ or "(none)"])
     click.echo(table(rows, ["#", "dataset", "distance", "similarity", "agrees most on",
                             "differs most on (this vs it)"], align="rlrrll"))
+    if len(found) < k:
+        click.echo(f"only {plural(len(found), fp.task + ' dataset')} in the history "
+                   f"(asked for {k})")
 
 
 # -- suggest ----------------------------------------------------------------------------
@@ -142,10 +155,11 @@ def similar_cmd(data, target, task, fingerprint_file, k, kb_path, as_json) -> No
 @click.option("--strategy", "-s", default=None,
               help=f"Ranking strategy: {', '.join(STRATEGIES)} [default: {DEFAULT_STRATEGY}].")
 @click.option("--space", "space_file", type=click.Path(path_type=Path), default=None,
-              help="JSON search-space file restricting the suggestions (values outside "
-                   "are clipped; categorical values outside drop the configuration).")
+              help=SPACE_HELP + " Values outside are clipped; categorical values "
+                   "outside drop the configuration.")
 @click.option("--max-fit-seconds", type=click.FloatRange(min=0), default=None,
-              help="Drop suggestions expected to take longer to fit on DATA.")
+              help="Drop suggestions expected to take longer to fit on DATA [default: "
+                   "no limit].")
 @click.option("--seed", type=int, default=0, show_default=True,
               help="Seed for strategies that draw at random.")
 @kb_option
@@ -154,18 +168,26 @@ def similar_cmd(data, target, task, fingerprint_file, k, kb_path, as_json) -> No
 def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strategy,
                 space_file, max_fit_seconds, seed, kb_path, as_json) -> None:
     """Suggest starting configurations for FAMILY on DATA."""
-    data = dataset_input(data, target, fingerprint_file)
-    found = open_history(kb_path).suggest(
-        data, target=target, family=family, k=k, task=task, metric=metric,
-        strategy=strategy, space=space_file, max_fit_seconds=max_fit_seconds, seed=seed,
-        fingerprint_of=fingerprint_file)
+    kb = open_history(kb_path)
+    fp = query_fingerprint(data, target, task, fingerprint_file)
+    try:
+        found = kb.suggest(
+            target=target, family=family, k=k, task=task, metric=metric,
+            strategy=strategy, space=space_file, max_fit_seconds=max_fit_seconds, seed=seed,
+            fingerprint_of=fp)
+    except NothingToSuggestError as exc:  # worded like similar's and backtest's
+        raise NothingToSuggestError(f"nothing to compare with: {exc}") from None
     if as_json:
         emit_json([s.to_dict() for s in found])
         return
-    click.echo(f"{len(found)} starting configurations for {family} "
-               f"({found[0].strategy}, metric {found[0].metric or metric or 'default'}); "
+    click.echo(task_line(fp, task, fingerprint_file))
+    used = found[0].metric or metric
+    click.echo(f"{plural(len(found), 'starting configuration')} for {family} "
+               f"({found[0].strategy}" + (f", metric {used}" if used else "") + "); "
                "norm. score: 1 = best trial of its study")
     _echo_suggestions(found)
+    click.echo("distance: scaled over the datasets with a study of this family, so it can "
+               "differ from 'similar', which scales over every dataset of the task")
     click.echo("Starting points only: validate the tuned model on held-out data.")
 
 
@@ -183,3 +205,6 @@ def _echo_suggestions(found) -> None:
     if pooled:
         click.echo("expected: similarity-weighted mean norm. score over the nearest datasets "
                    "(* = partly predicted by surrogates)")
+    if any(s.source_name is None or s.expected_fit_seconds is None for s in found):
+        click.echo("-: none (a configuration not taken from a past study has no source, "
+                   "distance or score; a fit time without past fits is not estimated)")

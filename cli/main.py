@@ -14,13 +14,15 @@ import click
 
 import warmstart
 from cli.backtest import backtest_cmd
+from cli.common import CommandGroup
 from cli.dataset_commands import fingerprint_cmd, log_cmd, similar_cmd, suggest_cmd
+from cli.examples import attach_examples
 from cli.families import families_cmd
 from cli.kb import kb_group
 from cli.tune import tune_cmd
 
 
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.group(cls=CommandGroup, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(warmstart.__version__, prog_name="warmstart")
 def main() -> None:
     """Warm-start hyperparameter tuning from your team's history of past studies."""
@@ -29,6 +31,7 @@ def main() -> None:
 for _command in (families_cmd, fingerprint_cmd, log_cmd, similar_cmd, suggest_cmd,
                  backtest_cmd, tune_cmd, kb_group):
     main.add_command(_command)
+attach_examples(main)
 
 if __name__ == "__main__":  # pragma: no cover
     main()

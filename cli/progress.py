@@ -80,6 +80,8 @@ class CountProgressBar:
         self.bar: Any = None
 
     def __call__(self, done: int, total: int) -> None:
+        if not sys.stderr.isatty():  # a log file or a pipe gets no stray progress line
+            return
         if self.bar is None:
             self.bar = click.progressbar(length=total, label=self.label, file=sys.stderr)
             self.bar.__enter__()

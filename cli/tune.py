@@ -9,6 +9,7 @@ import click
 
 from cli.common import (
     EXIT_INTERRUPTED,
+    SPACE_HELP,
     TASK,
     family_option,
     handle_errors,
@@ -34,18 +35,23 @@ from warmstart.tune import GP_EI, SEARCHES, TuneResult, tune
 @click.option("--jobs", "-j", default=1, show_default=True, type=int,
               help="Folds fitted in parallel (-1: all cores).")
 @click.option("--time-limit", type=float, default=None,
-              help="Seconds; no new trial starts after this.")
+              help="Seconds; no new trial starts after this [default: no limit].")
 @click.option("--search", type=click.Choice(SEARCHES), default=GP_EI, show_default=True,
               help="What proposes trials after the warm start.")
 @click.option("--warm-start", "warm_start", type=int, default=None,
               help="Suggestions to evaluate first [default: min(5, budget // 2)].")
 @click.option("--strategy", "-s", default=None,
-              help="Ranking strategy of the warm-start suggestions (see 'suggest').")
+              help="Ranking strategy of the warm-start suggestions (see 'suggest') "
+                   "[default: the suggest default].")
 @click.option("--space", "space_file", type=click.Path(path_type=Path), default=None,
-              help="JSON search-space file narrowing the family's space.")
+              help=SPACE_HELP)
+@click.option("--max-fit-seconds", type=click.FloatRange(min=0), default=None,
+              help="Leave out warm-start suggestions expected to take longer to fit on "
+                   "DATA [default: no limit].")
 @click.option("--no-log", "no_log", is_flag=True, help="Do not log the study.")
 @click.option("--out", type=click.Path(path_type=Path), default=None,
-              help="Write the best configuration as JSON to this file.")
+              help="Write the best configuration as JSON to this file (checked before "
+                   "any trial) [default: not written].")
 @click.option("--name", default=None, help="Label for the study [default: file name].")
 @click.option("--task", type=TASK, default=None, help="Override the inferred task.")
 @click.option("--progress/--no-progress", default=None,
@@ -55,8 +61,8 @@ from warmstart.tune import GP_EI, SEARCHES, TuneResult, tune
 @json_option
 @handle_errors
 def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, search,
-             warm_start, strategy, space_file, no_log, out, name, task, progress, kb_path,
-             as_json) -> None:
+             warm_start, strategy, space_file, max_fit_seconds, no_log, out, name, task,
+             progress, kb_path, as_json) -> None:
     """Tune FAMILY on DATA: warm-start suggestions first, then Bayesian optimisation."""
     path = resolve_path(kb_path)
     bar = TrialProgressBar(budget, stream=sys.stderr, enabled=progress)
@@ -65,7 +71,8 @@ def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, s
         result = tune(data, target=target, family=family, budget=budget, metric=metric, cv=cv,
                       seed=seed, jobs=jobs, time_limit=time_limit, search=search, kb=path,
                       log=not no_log, task=task, out=out, name=name, warm_start=warm_start,
-                      space=space_file, strategy=strategy, progress=bar)
+                      space=space_file, strategy=strategy, progress=bar,
+                      max_fit_seconds=max_fit_seconds)
     finally:
         bar.close()
     if as_json:
@@ -79,6 +86,7 @@ def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, s
 
 def _echo_result(result: TuneResult, path: Path, out: Path | None) -> None:
     """The notes, the trials best first, the best configuration and what was written."""
+    click.echo(f"task: {result.task}")
     for note in result.notes:
         click.echo(note)
     rows = [[i, t.index + 1, t.origin, t.score, t.fold_sd, t.fit_seconds, t.status,

@@ -9,6 +9,7 @@ import hashlib
 import json
 import os
 import shutil
+import socket
 from pathlib import Path
 
 import numpy as np
@@ -69,8 +70,30 @@ class Work:
         return ["log", "--fingerprint", str(path), "-f", "random_forest", "--trials",
                 str(self.trials), "--kb", str(self.kb), *map(str, extra)]
 
+    def suggest(self, *extra):
+        return ["suggest", str(self.data), "-t", "target", "-f", "random_forest",
+                "--kb", str(self.kb), *map(str, extra)]
+
+    def tune(self, *extra):
+        return ["tune", str(self.data), "-t", "target", "-f", "random_forest", "-n", "2",
+                "--cv", "2", "--kb", str(self.kb), *map(str, extra)]
+
+    def space(self, spec) -> Path:
+        return self.write("space.json", json.dumps(spec))
+
     def fp_dict(self, **change):
         return {**self.fp.to_dict(), **change}
+
+
+def _socket(path: Path) -> Path:
+    """A listening Unix socket at ``path`` (it stays bound for the test's duration)."""
+    sock = socket.socket(socket.AF_UNIX)
+    sock.bind(str(path))
+    _SOCKETS.append(sock)
+    return path
+
+
+_SOCKETS: list[socket.socket] = []
 
 
 @pytest.fixture(scope="module")
@@ -171,6 +194,55 @@ CASES = [  # id, builder(w) -> CLI args, substring the error must contain
      "not a warmstart export"),
     ("negative grace period", lambda w: ["kb", "check", "--kb", str(w.kb), "--grace", "-5"],
      "grace period"),
+    # paths the system refuses (an OSError must never become a traceback)
+    ("5,000-character data path", lambda w: w.log(w.root / ("d" * 5000 + ".csv")),
+     "File name too long"),
+    ("5,000-character trials path", lambda w: w.log(None, w.root / ("t" * 5000 + ".csv")),
+     "File name too long"),
+    ("5,000-character --kb path", lambda w: w.log()[:-1] + [str(w.root / ("k" * 5000))],
+     "File name too long"),
+    ("5,000-character --fingerprint path",
+     lambda w: w.log_fp("{}")[:2] + [str(w.root / ("f" * 5000))] + w.log_fp("{}")[3:],
+     "File name too long"),
+    ("data path through a file", lambda w: w.log(w.data / "inner.csv"), "Not a directory"),
+    ("a socket as data", lambda w: w.log(_socket(w.root / "s.csv")), "is a socket"),
+    ("a device as data", lambda w: w.log(Path(os.devnull)), "is a device"),
+    ("a device as trials", lambda w: w.log(None, Path(os.devnull)), "is a device"),
+    ("export to a folder that does not exist",
+     lambda w: ["kb", "export", str(w.root / "nowhere" / "x.zip"), "--kb", str(w.kb)],
+     "does not exist"),
+    ("export into /proc", lambda w: ["kb", "export", "/proc/x.zip", "--kb", str(w.kb)],
+     "No such file or directory"),
+    # --space files with wrong types
+    ("--space low is text", lambda w: w.suggest("--space", w.space([{"name": "n_estimators",
+                                                                      "low": "abc"}])),
+     "must lie inside [10, 1000]"),
+    ("--space name is a list", lambda w: w.suggest("--space", w.space([{"name": ["x"]}])),
+     "unknown parameter ['x']"),
+    ("--space choices is a number",
+     lambda w: w.suggest("--space", w.space([{"name": "criterion", "choices": 5}])),
+     "must be a non-empty subset"),
+    ("--space file is not a list", lambda w: w.suggest("--space", w.space({"a": 1})),
+     "must be a JSON list"),
+    # click's usage errors: one line naming --help
+    ("-k 0", lambda w: w.suggest("-k", "0"), "(see 'warmstart suggest --help')"),
+    ("--budget abc", lambda w: ["tune", str(w.data), "-t", "target", "-f", "linear",
+                                "--budget", "abc", "--kb", str(w.kb)],
+     "'abc' is not a valid integer. (see 'warmstart tune --help')"),
+    ("unknown option", lambda w: w.log("--colour"), "No such option '--colour'"),
+    ("unknown command", lambda w: ["fingerprnt", str(w.data)], "(see 'warmstart --help')"),
+    ("negative --max-fit-seconds", lambda w: w.suggest("--max-fit-seconds", "-1"),
+     "--max-fit-seconds"),
+    ("both metric directions", lambda w: w.log(None, None, "--metric", "team_lift",
+                                               "--higher-is-better", "--lower-is-better"),
+     "contradict each other"),
+    # outputs checked before any work
+    ("tune --out in a missing folder",
+     lambda w: w.tune("--out", w.root / "nowhere" / "best.json"), "does not exist"),
+    ("tune --out is a directory", lambda w: w.tune("--out", w.root), "is a directory"),
+    ("backtest --plot in /proc",
+     lambda w: ["backtest", "-f", "random_forest", "--plot", "/proc/regret.png", "--kb",
+                str(w.kb)], "cannot write the plot"),
 ]
 
 
@@ -187,7 +259,7 @@ def test_malformed_input_is_refused_and_nothing_written(tmp_path, template, buil
     assert dir_digest(w.kb) == before
 
 
-def test_at_least_thirty_distinct_malformed_inputs(tmp_path, template):
+def test_at_least_sixty_five_distinct_malformed_inputs(tmp_path, template):
     # Each case is a different input, not another name for one already listed: its
     # arguments, with files replaced by their bytes and directories by their place,
     # together with the state of its history (reference: common practice).
@@ -198,14 +270,14 @@ def test_at_least_thirty_distinct_malformed_inputs(tmp_path, template):
 
         def content(arg: str, w=w) -> str:
             path = Path(arg)
-            if not path.is_relative_to(w.root):
-                return arg
+            if not path.is_relative_to(w.root) or len(path.name) > 255:
+                return arg  # a name too long to look up is its own content
             if path.is_file():
                 return "file " + hashlib.sha256(path.read_bytes()).hexdigest()
             return ("dir " if path.is_dir() else "absent ") + str(path.relative_to(w.root))
 
         inputs.add((tuple(map(content, args)), tuple(sorted(dir_digest(w.kb).items()))))
-    assert len(inputs) == len(CASES) >= 30
+    assert len(inputs) == len(CASES) >= 65
 
 
 def test_read_only_history_is_refused(tmp_path, template, monkeypatch):

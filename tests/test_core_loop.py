@@ -71,7 +71,8 @@ def test_round_trip_same_file_is_its_own_nearest_neighbour(history, tmp_path, ir
                "--kb", history).output
     assert "cancer" in text and "norm. score" in text and "held-out data" in text
     text = run("similar", cancer_csv, "--target", "target", "--kb", history).output
-    assert text.splitlines()[2].split()[1] == "cancer"
+    assert text.splitlines()[0].startswith("task: classification")
+    assert text.splitlines()[3].split()[1] == "cancer"
 
 
 def test_logging_the_same_data_twice_links_the_dataset(history, tmp_path, iris_csv):

@@ -191,5 +191,5 @@ def test_example_trials_file_logs(tmp_path):
                                gen.HGB, "--trials", str(EXAMPLE_TRIALS), "--kb", str(kb_dir),
                                "--json"])
     assert res.exit_code == 0, res.output
-    logged = json.loads(res.output)
+    logged = json.loads(res.stdout)  # stderr has the fingerprint warnings
     assert logged["n_trials"] == len(trials) and logged["n_ok"] == len(trials) - 1

@@ -28,7 +28,9 @@ seeds and their regret averaged per dataset.
 
 from __future__ import annotations
 
+import importlib.util
 import math
+import os
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from functools import cached_property
@@ -41,6 +43,7 @@ from warmstart.errors import BadInputError, NothingToSuggestError
 from warmstart.families import get_family
 from warmstart.families.base import Family
 from warmstart.fingerprint import Fingerprint
+from warmstart.io import check_writable
 from warmstart.metrics import MINIMIZE
 from warmstart.spaces import SearchSpace
 from warmstart.strategies import (
@@ -204,8 +207,10 @@ def backtest_tables(tables: dict[str, pd.DataFrame], fingerprints: dict[str, Fin
                seed, repeats, SurrogateCache() if surrogate_cache is None else surrogate_cache)
     plans = _plan(tables, fam, metric, space, candidates, history_trials, normalisation)
     if not plans:
-        raise BadInputError(f"backtesting {fam.name!r} needs at least two datasets with a "
-                            "study of it (same task and metric) in the history")
+        raise NothingToSuggestError(
+            f"nothing to compare with: backtesting {fam.name!r} needs at least two "
+            "datasets with a study of it (same task and metric) in the history; fill it "
+            "with 'warmstart log' (finished studies) or 'warmstart tune'")
     jobs = []
     for plan in plans:
         excluded = _exclusions(plan.dataset_ids, groups or {}, seed)
@@ -401,6 +406,23 @@ def _regret_curve(values: np.ndarray, best: float, median: float,
     return (best - at) / (best - median)
 
 
+_NO_MATPLOTLIB = "plotting needs matplotlib; install it with pip install 'warmstart[plot]'"
+
+
+def check_plot_output(path: str | os.PathLike) -> None:
+    """Refuse a plot that could not be written (no matplotlib, an unwritable place)
+    before the backtest runs. Raises :class:`BadInputError`."""
+    if importlib.util.find_spec("matplotlib") is None:
+        raise BadInputError(_NO_MATPLOTLIB)
+    check_writable(path, "the plot")
+
+
+# Coinciding curves (two strategies with the same regret) must stay visible: each
+# strategy gets its own dash pattern and marker, and earlier ones are drawn wider.
+_LINE_STYLES = ("-", "--", "-.", ":")
+_MARKERS = ("o", "s", "^", "D", "v", "x")
+
+
 def plot_regret(result: BacktestResult, path, title: str | None = None) -> None:
     """Save a plot of mean regret against k per strategy (band: inter-quartile range).
 
@@ -412,15 +434,18 @@ def plot_regret(result: BacktestResult, path, title: str | None = None) -> None:
         matplotlib.use("Agg")
         import matplotlib.pyplot as plt
     except ImportError:
-        raise BadInputError("plotting needs matplotlib; install it with "
-                            "pip install 'warmstart[plot]'") from None
+        raise BadInputError(_NO_MATPLOTLIB) from None
     summary = pd.DataFrame(result.summary())
     fig, ax = plt.subplots(figsize=(6.4, 4.2))
-    for s in result.strategies:
+    n = len(result.strategies)
+    for i, s in enumerate(result.strategies):
         d = summary[summary["strategy"] == s].sort_values("k")
         if d["mean_regret"].isna().all():
             continue
-        line, = ax.plot(d["k"], d["mean_regret"], marker="o", label=s)
+        line, = ax.plot(d["k"], d["mean_regret"], label=s,
+                        linestyle=_LINE_STYLES[i % len(_LINE_STYLES)],
+                        marker=_MARKERS[i % len(_MARKERS)], markerfacecolor="none",
+                        linewidth=1.2 + 1.5 * (n - 1 - i) / max(n - 1, 1), zorder=2 + i)
         ax.fill_between(d["k"], d["q25"].astype(float), d["q75"].astype(float),
                         color=line.get_color(), alpha=0.12)
     ax.set_xlabel("k (configurations tried)")
@@ -438,4 +463,5 @@ def plot_regret(result: BacktestResult, path, title: str | None = None) -> None:
         plt.close(fig)
 
 
-__all__ = ["DEFAULT_KS", "BacktestResult", "backtest", "backtest_tables", "plot_regret"]
+__all__ = ["DEFAULT_KS", "BacktestResult", "backtest", "backtest_tables", "check_plot_output",
+           "plot_regret"]

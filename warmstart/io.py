@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import json
 import os
+import stat
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -34,9 +35,11 @@ PART_ROWS = 1 << 20
 def is_parquet(path: str | os.PathLike) -> bool:
     """Whether ``path`` holds Parquet (by its magic bytes, whatever its name)."""
     try:
+        if not stat.S_ISREG(os.stat(path).st_mode):
+            return False  # opening a FIFO would block: read_table refuses it
         with open(path, "rb") as fh:
             return fh.read(4) == b"PAR1"
-    except OSError:
+    except (OSError, ValueError):
         return False
 
 
@@ -48,11 +51,10 @@ def read_table(path: str | os.PathLike) -> pd.DataFrame:
     undecodable or malformed file, or one with duplicate column names.
     """
     p = Path(path)
-    if not p.exists():
-        raise BadInputError(f"file not found: {p}")
-    if p.is_dir():
+    st = regular_file(p, allow_dir=True)
+    if stat.S_ISDIR(st.st_mode):
         return read_directory(p)
-    if p.stat().st_size == 0:
+    if st.st_size == 0:
         raise BadInputError(f"file is empty: {p}")
     try:
         if is_parquet(p):
@@ -67,6 +69,8 @@ def read_table(path: str | os.PathLike) -> pd.DataFrame:
         raise
     except UnicodeDecodeError:
         raise BadInputError(f"{p} is not UTF-8 text (undecodable bytes)") from None
+    except OSError as exc:
+        raise BadInputError(f"could not read {p}: {exc.strerror or exc}") from None
     except (pd.errors.ParserError, pd.errors.EmptyDataError, pa.ArrowException,
             ValueError) as exc:
         reason = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
@@ -77,6 +81,38 @@ def read_table(path: str | os.PathLike) -> pd.DataFrame:
     return df
 
 
+def shown(path: str | os.PathLike) -> str:
+    """A path for a one-line message: a very long one keeps its start and end."""
+    text = str(path)
+    return text if len(text) <= 80 else f"{text[:40]}...{text[-30:]} ({len(text)} characters)"
+
+
+def regular_file(path: str | os.PathLike, what: str = "file",
+                 allow_dir: bool = False) -> os.stat_result:
+    """``stat`` of ``path``, refusing anything that is not a regular file.
+
+    A FIFO, socket or device would block or never end when read, so it is refused
+    before it is opened; so is a path the system cannot look up (too long, a file
+    used as a folder, not permitted). Raises :class:`BadInputError` with one line.
+    """
+    try:
+        st = os.stat(path)
+    except FileNotFoundError:
+        raise BadInputError(f"{what} not found: {shown(path)}") from None
+    except OSError as exc:
+        raise BadInputError(f"cannot use {what} {shown(path)}: {exc.strerror or exc}"
+                            ) from None
+    if stat.S_ISDIR(st.st_mode):
+        if allow_dir:
+            return st
+        raise BadInputError(f"expected a {what}, got a directory: {shown(path)}")
+    if not stat.S_ISREG(st.st_mode):
+        kind = ("a named pipe (FIFO)" if stat.S_ISFIFO(st.st_mode) else
+                "a socket" if stat.S_ISSOCK(st.st_mode) else "a device")
+        raise BadInputError(f"{shown(path)} is {kind}, not a regular file")
+    return st
+
+
 def _read_csv(p: Path) -> pd.DataFrame:
     sep = "\t" if p.suffix.lower() == ".tsv" else ","
     with open(p, "rb") as fh:
@@ -84,8 +120,10 @@ def _read_csv(p: Path) -> pd.DataFrame:
     if b"\x00" in head:
         raise BadInputError(f"{p} is not a text table (it contains NUL bytes)")
     sep = _delimiter(head, sep)
-    # pandas silently renames duplicate headers (a, a.1): read the header row raw.
-    raw = pd.read_csv(p, sep=sep, header=None, nrows=1, encoding="utf-8", dtype=str)
+    # pandas silently renames duplicate headers (a, a.1): read the header row raw, and
+    # literally: headers "NA", "null" and "nan" are column names, not missing values.
+    raw = pd.read_csv(p, sep=sep, header=None, nrows=1, encoding="utf-8", dtype=str,
+                      keep_default_na=False, na_filter=False)
     names = [str(x) for x in raw.iloc[0].tolist()]
     if len(set(names)) != len(names):
         dupes = sorted({n for n in names if names.count(n) > 1})
@@ -144,6 +182,7 @@ def open_parquet(path: str | os.PathLike, batch_rows: int = 65536
 
 def read_json_file(path: str | os.PathLike, what: str):
     """Load a JSON file, raising :class:`BadInputError` naming ``what`` it should be."""
+    regular_file(path, f"{what} file")
     try:
         with open(path, encoding="utf-8") as fh:
             return json.load(fh)
@@ -153,6 +192,32 @@ def read_json_file(path: str | os.PathLike, what: str):
         raise BadInputError(f"{what} file {path} is a directory") from None
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
         raise BadInputError(f"{what} file {path} is not valid JSON: {exc}") from None
+    except OSError as exc:
+        raise BadInputError(f"{what} file {shown(path)}: {exc.strerror or exc}") from None
+
+
+def check_writable(path: str | os.PathLike, what: str) -> Path:
+    """Refuse an output path that cannot be written, before any work is done.
+
+    ``path`` must not be a directory and its folder must exist and accept a new file:
+    a hidden probe file is created there and removed (permission bits alone say nothing
+    for root or on network filesystems). Raises :class:`BadInputError` naming ``what``.
+    """
+    p = Path(path)
+    try:
+        if p.is_dir():
+            raise BadInputError(f"{what} {shown(p)} is a directory; give a file name")
+        folder = p.parent
+        if not folder.is_dir():
+            raise BadInputError(f"cannot write {what} {shown(p)}: folder "
+                                f"{shown(folder)} does not exist")
+        probe = folder / f".warmstart-probe-{os.getpid()}"
+        os.close(os.open(probe, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600))
+        os.unlink(probe)
+    except OSError as exc:
+        raise BadInputError(f"cannot write {what} {shown(p)}: {exc.strerror or exc}"
+                            ) from None
+    return p
 
 
 # -- directories of Parquet files ------------------------------------------------------------

@@ -44,6 +44,7 @@ from warmstart.errors import BadInputError, NothingToSuggestError
 from warmstart.families import Family, get_family
 from warmstart.fingerprint import Fingerprint, fingerprint, load_frame
 from warmstart.history import KnowledgeBase, LoggedStudy
+from warmstart.io import check_writable
 from warmstart.metrics import DEFAULT_METRIC, resolve_metric
 from warmstart.pipelines import make_pipeline
 from warmstart.spaces import SearchSpace, config_key
@@ -154,6 +155,7 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
          time_limit: float | None = None, search: str = GP_EI,
          kb: KnowledgeBase | str | os.PathLike | None = None, log: bool = True,
          task: str | None = None, out: str | os.PathLike | None = None,
+         max_fit_seconds: float | None = None,
          name: str | None = None, warm_start: int | None = None,
          space: SearchSpace | str | os.PathLike | list | None = None,
          defaults_first: bool = True, strategy: str | None = None,
@@ -195,6 +197,10 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         Overrides the task inferred from the target.
     out : path, optional
         Write the best configuration as JSON here (see :meth:`TuneResult.best_config`).
+        Checked to be writable before any trial runs.
+    max_fit_seconds : float, optional
+        Leave out of the warm start the suggestions expected to take longer (seconds)
+        to fit on this dataset, as ``suggest`` does.
     name : str, optional
         Label of the study (and of the dataset when it is new); defaults to the file
         name.
@@ -225,12 +231,17 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
     fam = _check_arguments(family, budget, cv, jobs, time_limit, search, warm_start)
     if log and kb is not None:
         kb._check_writable()
+    if max_fit_seconds is not None and not (isinstance(max_fit_seconds, (int, float))
+                                            and max_fit_seconds >= 0):
+        raise BadInputError(f"max_fit_seconds must be a number >= 0, not {max_fit_seconds!r}")
+    if out is not None:  # before any trial: a study must not end in "cannot write"
+        check_writable(out, "the best configuration (out)")
     df, fp, scoring = _load(data, target, task, metric)
     space = fam.space(fp.task) if space is None else user_space(space, fam, fp.task)
-    notes: list[str] = []
+    notes: list[str] = list(fp.warnings)  # e.g. the columns dropped from the model
     folds = _folds(df, target, fam, fp.task, scoring, cv, seed, jobs, notes)
     queue, queue_origin = _warm_queue(kb, fp, fam.name, space, budget, warm_start, scoring,
-                                      seed, strategy, defaults_first, notes)
+                                      seed, strategy, defaults_first, notes, max_fit_seconds)
     result = TuneResult(fam.name, fp.task, scoring, str(target), len(folds.y), cv, seed,
                         search, budget, notes=notes)
     proposer = _Proposer(space, search, queue, queue_origin, seed)
@@ -341,11 +352,25 @@ def _folds(df: pd.DataFrame, target: str, fam: Family, task: str, scoring: str, 
     return _Folds(fam, task, X, y, splitter, scoring, seed, jobs)
 
 
+def _warm_note(found: list) -> str:
+    """What the warm start is made of: how many configurations, from which datasets."""
+    sources: dict[str, float] = {}
+    for s in found:
+        if s.source_name is not None:
+            sources.setdefault(s.source_name, s.distance)
+    text = f"warm start: {len(found)} configuration{'s' if len(found) != 1 else ''}"
+    if not sources:
+        return text + f" ({found[0].strategy}, not taken from past studies)" if found else text
+    near = ", ".join(f"{n} (distance {d:.3g})" if d is not None else n
+                     for n, d in sources.items())
+    return text + f" from the nearest datasets: {near}"
+
+
 # -- the warm-start queue and the search --------------------------------------------------
 def _warm_queue(kb: KnowledgeBase | None, fp: Fingerprint, family: str, space: SearchSpace,
                 budget: int, warm_start: int | None, scoring: str, seed: int,
-                strategy: str | None, defaults_first: bool,
-                notes: list[str]) -> tuple[list[dict[str, Any]], str]:
+                strategy: str | None, defaults_first: bool, notes: list[str],
+                max_fit_seconds: float | None = None) -> tuple[list[dict[str, Any]], str]:
     """The configurations to run first and their origin: the history's suggestions, else
     (a cold study) the family's defaults, else nothing."""
     n_warm = min(MAX_WARM_START, max(1, budget // 2)) if warm_start is None else warm_start
@@ -356,12 +381,14 @@ def _warm_queue(kb: KnowledgeBase | None, fp: Fingerprint, family: str, space: S
     elif n_warm > 0:
         try:
             found = kb.suggest(fingerprint_of=fp, family=family, k=n_warm, metric=scoring,
-                               seed=seed, space=space, strategy=strategy)
+                               seed=seed, space=space, strategy=strategy,
+                               max_fit_seconds=max_fit_seconds)
             queue = [space.validate(s.config) for s in found]
-            notes.append(f"warm start: {len(queue)} configurations from the history's "
-                         f"nearest datasets")
-        except NothingToSuggestError as exc:
-            notes.append(f"starting cold: {exc}")
+            notes.append(_warm_note(found))
+        except NothingToSuggestError:
+            # not the history's "log one first": this study is logged when it ends
+            notes.append(f"starting cold: the history has no {fp.task} study of {family} "
+                         f"with metric {scoring} yet")
     if not queue and defaults_first:
         # A cold study starts where a user without a history would: the defaults.
         return [_defaults_within(space)], DEFAULTS

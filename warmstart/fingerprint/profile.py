@@ -288,7 +288,7 @@ def build_profile(s: Scan, task: str | None = None) -> DatasetProfile:
         cat_levels.append(int(round(levels[0])))
         cat_high.append(levels[2])
     patterns = None if s.patterns.overflowed else np.asarray(s.patterns.counts)
-    return DatasetProfile(
+    profile = DatasetProfile(
         task=task, n_rows=s.n_rows, n_columns=len(s.feature_cols), numeric=numeric,
         numeric_names=[nm for nm, _, _ in cols.numeric], categorical=cat_codes,
         categorical_names=[nm for nm, _, _, _ in cols.categorical],
@@ -303,6 +303,10 @@ def build_profile(s: Scan, task: str | None = None) -> DatasetProfile:
         target_zeros=tzeros, target_missing=tmissing,
         distinct_rows=_rows_distinct(s), sample_priority=s.sample_priority,
     )
+    from warmstart.fingerprint.target import leakage_warnings  # target imports profile
+
+    profile.warnings.extend(leakage_warnings(profile))
+    return profile
 
 
 def _rows_distinct(s: Scan) -> float:
@@ -558,7 +562,9 @@ def _target(s: Scan, t: int, task: str | None):
         if not numeric_ok:
             raise BadInputError(f"target column {name!r} is not numeric, so it cannot be a "
                                 "regression target")
-        if not moments[2] > 0:
+        # A range test, not the variance: the sum of squares of values near 1e307
+        # overflows, and uint64 values near 2**64 lose their spread as floats.
+        if s.column_distinct(t)[0] < 2:
             raise BadInputError(f"target column {name!r} is constant")
         y = raw.astype(float) if s.kinds[t] == NUMBER else text_as_numbers(raw)
         y = np.where(np.isfinite(y), y, np.nan)

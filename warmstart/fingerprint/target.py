@@ -125,3 +125,77 @@ def majority_class_share(p: DatasetProfile) -> float:
               "rows with a missing (or infinite) target / rows", "[0, 1)", BOTH)
 def target_missing_fraction(p: DatasetProfile) -> float:
     return p.target_missing / p.n_rows
+
+
+# -- leakage: one column that alone gives the target away ---------------------------------
+LEAK_CORRELATION = 0.98  # |Pearson r| of one numeric column with the target
+LEAK_ACCURACY = 0.99  # accuracy of the one-column lookup landmark below
+LEAK_MIN_ROWS = 30  # fewer labelled sample rows say nothing
+LEAK_BINS = 10  # numeric columns are cut at their deciles for the lookup
+
+
+def leakage_warnings(p: DatasetProfile) -> list[str]:
+    """Warnings naming each feature that alone predicts the target almost perfectly.
+
+    A column is flagged when, on the sample, ``|r| >= 0.98`` (Pearson correlation of a
+    numeric column with the target; classes as codes only when there are two), or, for
+    classification, when predicting each row's class as the majority class of its level
+    (numeric columns: of its decile bin) is right for at least 99% of the rows and
+    clearly better than always predicting the majority class. Such a column is often a
+    leak (the target in another form, or recorded after the outcome): tuning on it
+    looks perfect and generalises badly.
+    """
+    labelled = np.isfinite(p.y) & (p.y >= 0 if p.classes else True)
+    if labelled.sum() < LEAK_MIN_ROWS:
+        return []
+    y = p.y[labelled].astype(float)
+    flagged: list[str] = []
+    for name, col in zip(p.numeric_names, p.numeric.T):
+        x = col[labelled].astype(float)
+        ok = np.isfinite(x)
+        if ok.sum() < LEAK_MIN_ROWS or np.ptp(x[ok]) == 0:
+            continue
+        if p.classes in (0, 2) and np.ptp(y[ok]) > 0:
+            r = np.corrcoef(_standardise(x[ok]), _standardise(y[ok]))[0, 1]
+            if abs(r) >= LEAK_CORRELATION:
+                flagged.append(f"{name} (|r| = {abs(r):.3f})")
+                continue
+        if p.classes:
+            edges = np.unique(np.quantile(x[ok], np.linspace(0, 1, LEAK_BINS + 1)[1:-1]))
+            acc = _lookup_accuracy(np.digitize(x[ok], edges), y[ok].astype(np.int64))
+            if acc is not None:
+                flagged.append(f"{name} (one-column accuracy {acc:.3f})")
+    if p.classes:
+        for name, codes, levels in zip(p.categorical_names, p.categorical,
+                                       p.categorical_levels):
+            keep = codes[labelled] >= 0
+            if levels > max(LEAK_BINS, keep.sum() // 10):  # many levels: lookup overfits
+                continue
+            acc = _lookup_accuracy(codes[labelled][keep], y[keep].astype(np.int64))
+            if acc is not None:
+                flagged.append(f"{name} (one-column accuracy {acc:.3f})")
+    if not flagged:
+        return []
+    return ["possible leakage: one column alone predicts the target almost perfectly: "
+            + ", ".join(flagged)]
+
+
+def _standardise(x: np.ndarray) -> np.ndarray:
+    """Centre and scale by the range first: values near 1e307 would overflow r."""
+    span = np.ptp(x)
+    return (x - x.min()) / span if span > 0 else x - x.min()
+
+
+def _lookup_accuracy(groups: np.ndarray, y: np.ndarray) -> float | None:
+    """Accuracy of predicting each row's class as its group's majority class, or None
+    when below :data:`LEAK_ACCURACY` or not clearly above the majority-class rate."""
+    if y.size < LEAK_MIN_ROWS:
+        return None
+    _, g = np.unique(groups, return_inverse=True)
+    table = np.zeros((g.max() + 1, y.max() + 1))
+    np.add.at(table, (g, y), 1)
+    acc = table.max(axis=1).sum() / y.size
+    baseline = np.bincount(y).max() / y.size
+    if acc < LEAK_ACCURACY or acc - baseline < 0.5 * (1 - baseline):
+        return None
+    return float(acc)
