@@ -10,8 +10,6 @@ categorical ones one-hot). Distances are Euclidean.
 from __future__ import annotations
 
 import numpy as np
-from scipy.sparse.csgraph import minimum_spanning_tree
-from scipy.spatial.distance import pdist, squareform
 
 from warmstart.fingerprint.catalogue import CLASSIFICATION, group, meta_feature
 from warmstart.fingerprint.design_matrix import design, labelled_rows
@@ -48,6 +46,8 @@ def boundary_fraction(D: np.ndarray, y: np.ndarray) -> float:
     ``D`` is the (n, n) distance matrix; zero distances (duplicate points) are replaced by
     a tiny positive value, since a zero entry is "no edge" to scipy's spanning tree.
     """
+    from scipy.sparse.csgraph import minimum_spanning_tree  # only when computed
+
     W = np.where(D > 0, D, 1e-12 * (D.max() or 1.0))
     np.fill_diagonal(W, 0.0)
     tree = minimum_spanning_tree(W).tocoo()
@@ -58,6 +58,8 @@ def boundary_fraction(D: np.ndarray, y: np.ndarray) -> float:
 
 def _subset(p: DatasetProfile) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(X, y, distance matrix) of the complexity sub-sample, cached."""
+    from scipy.spatial.distance import pdist, squareform  # only when computed
+
     if "complexity" not in p.cache:
         X, y = design(p)
         pri = p.sample_priority[labelled_rows(p)]

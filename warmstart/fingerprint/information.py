@@ -11,7 +11,6 @@ plug-in (maximum-likelihood) probabilities.
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
 from warmstart.fingerprint.catalogue import group, meta_feature, reduce_or_nan
 from warmstart.fingerprint.design_matrix import labelled_rows
@@ -33,6 +32,8 @@ def equal_frequency_codes(x: np.ndarray, bins: int = BINS) -> np.ndarray:
 
 def entropy_of(codes: np.ndarray) -> float:
     """Shannon entropy (nats) of non-negative integer codes."""
+    from scipy import stats  # scipy.stats loads in seconds: only when computed
+
     return float(stats.entropy(np.bincount(codes)))
 
 
