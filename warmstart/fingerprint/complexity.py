@@ -4,14 +4,15 @@ Ho & Basu, IEEE TPAMI 24(3), 2002; the multiclass forms of Lorena, Garcia, Lehma
 Souto & Ho, ACM Computing Surveys 52(5), 2019. Computed on the ``COMPLEXITY_ROWS``
 labelled sample rows of smallest sampling priority (a seeded sub-sample; all labelled
 rows when fewer), in :func:`design_matrix.design`'s space (numeric columns standardised,
-categorical ones one-hot). Distances are Euclidean.
+categorical ones one-hot; beyond ``COLUMN_CAP`` design columns, a seeded sample of
+``COLUMN_CAP`` of them, see :func:`catalogue.column_sample`). Distances are Euclidean.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from warmstart.fingerprint.catalogue import CLASSIFICATION, group, meta_feature
+from warmstart.fingerprint.catalogue import CLASSIFICATION, column_sample, group, meta_feature
 from warmstart.fingerprint.design_matrix import design, labelled_rows
 from warmstart.fingerprint.profile import DatasetProfile
 
@@ -66,6 +67,8 @@ def _subset(p: DatasetProfile) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         if y.size > COMPLEXITY_ROWS:
             keep = np.sort(np.argsort(pri, kind="stable")[:COMPLEXITY_ROWS])
             X, y = X[keep], y[keep]
+        # design columns have no names of their own: sampled by position
+        X = X[:, column_sample([str(j) for j in range(X.shape[1])])]
         D = squareform(pdist(X)) if X.shape[1] and y.size > 1 else np.zeros((y.size,) * 2)
         p.cache["complexity"] = (X, y, D)
     return p.cache["complexity"]
@@ -80,7 +83,7 @@ def _usable(p: DatasetProfile) -> bool:
               "Feature overlap by the maximum Fisher's discriminant ratio (F1)",
               "1 / (1 + max_f r_f), r_f Fisher's discriminant ratio of feature f (Ho & "
               "Basu 2002, F1; multiclass form of Lorena et al. 2019); low = a feature "
-              "separates the classes", "(0, 1]", CLASSIFICATION, basis="sample")
+              "separates the classes", "(0, 1]", CLASSIFICATION, basis="column_sample")
 def fisher_overlap(p: DatasetProfile) -> float:
     if not _usable(p):
         return float("nan")
@@ -91,7 +94,7 @@ def fisher_overlap(p: DatasetProfile) -> float:
 @meta_feature("boundary_fraction", COMPLEXITY,
               "Share of points on the class boundary of a minimum spanning tree (N1)",
               "points with an MST edge to another class / points (Ho & Basu 2002, N1)",
-              "[0, 1]", CLASSIFICATION, basis="sample")
+              "[0, 1]", CLASSIFICATION, basis="column_sample")
 def boundary_fraction_mf(p: DatasetProfile) -> float:
     if not _usable(p):
         return float("nan")
@@ -113,7 +116,7 @@ def _nearest_distances(D: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.nda
               "Nearest same-class over nearest other-class distances (N2)",
               "r / (1 + r), r = sum_i d(i, nearest same class) / sum_i d(i, nearest other "
               "class) (Ho & Basu 2002, N2; bounded form of Lorena et al. 2019)", "[0, 1)",
-              CLASSIFICATION, basis="sample")
+              CLASSIFICATION, basis="column_sample")
 def intra_extra_ratio(p: DatasetProfile) -> float:
     if not _usable(p):
         return float("nan")
@@ -130,7 +133,7 @@ def intra_extra_ratio(p: DatasetProfile) -> float:
               "Leave-one-out error rate of a 1-nearest-neighbour classifier (N3)",
               "share of points whose nearest other point has another class (Ho & Basu "
               "2002, N3); ties go to the earlier row", "[0, 1]", CLASSIFICATION,
-              basis="sample")
+              basis="column_sample")
 def nearest_neighbour_error(p: DatasetProfile) -> float:
     if not _usable(p):
         return float("nan")
