@@ -87,6 +87,11 @@ class BacktestResult:
     lookups: dict[str, dict[str, int]]
     skipped: list[str] = field(default_factory=list)
 
+    @property
+    def n_held_out(self) -> int:
+        """How many datasets were held out and scored."""
+        return int(self.per_dataset["dataset_id"].nunique())
+
     def regrets(self, strategy: str, k: int) -> np.ndarray:
         """Per-dataset regrets of one strategy at one k, shape (n_datasets,)."""
         d = self.per_dataset
