@@ -9,12 +9,15 @@ from __future__ import annotations
 import functools
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import click
 
 from warmstart.errors import BadInputError, WarmstartError
 from warmstart.families import TASKS
-from warmstart.history import ENV_VAR, KnowledgeBase, resolve_path
+
+if TYPE_CHECKING:  # the history loads numpy, pandas and pyarrow: imported where used
+    from warmstart.history import KnowledgeBase
 
 TASK = click.Choice(list(TASKS))
 EXIT_INTERRUPTED = 130  # 128 + SIGINT, what shells report for Ctrl-C
@@ -35,6 +38,8 @@ def handle_errors(func):
 
 
 def kb_option(func):
+    from warmstart.history import ENV_VAR
+
     return click.option(
         "--kb", "kb_path", type=click.Path(path_type=Path), default=None,
         help=f"History directory [default: ${ENV_VAR}, else ./knowledge_base].")(func)
@@ -77,4 +82,6 @@ def dataset_input(data, target, fingerprint_file) -> Path | None:
 
 def open_history(kb_path: Path | None) -> KnowledgeBase:
     """The history at --kb, else $WARMSTART_KB, else ./knowledge_base."""
+    from warmstart.history import KnowledgeBase, resolve_path
+
     return KnowledgeBase(resolve_path(kb_path))
