@@ -4,15 +4,15 @@ Ho & Basu, IEEE TPAMI 24(3), 2002; the multiclass forms of Lorena, Garcia, Lehma
 Souto & Ho, ACM Computing Surveys 52(5), 2019. Computed on the ``COMPLEXITY_ROWS``
 labelled sample rows of smallest sampling priority (a seeded sub-sample; all labelled
 rows when fewer), in :func:`design_matrix.design`'s space (numeric columns standardised,
-categorical ones one-hot; beyond ``COLUMN_CAP`` design columns, a seeded sample of
-``COLUMN_CAP`` of them, see :func:`catalogue.column_sample`). Distances are Euclidean.
+categorical ones one-hot; of a table of more than ``COLUMN_CAP`` feature columns, a
+seeded sample of ``COLUMN_CAP`` of them). Distances are Euclidean.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from warmstart.fingerprint.catalogue import CLASSIFICATION, column_sample, group, meta_feature
+from warmstart.fingerprint.catalogue import CLASSIFICATION, group, meta_feature
 from warmstart.fingerprint.design_matrix import design, labelled_rows
 from warmstart.fingerprint.profile import DatasetProfile
 
@@ -67,8 +67,6 @@ def _subset(p: DatasetProfile) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         if y.size > COMPLEXITY_ROWS:
             keep = np.sort(np.argsort(pri, kind="stable")[:COMPLEXITY_ROWS])
             X, y = X[keep], y[keep]
-        # design columns have no names of their own: sampled by position
-        X = X[:, column_sample([str(j) for j in range(X.shape[1])])]
         D = squareform(pdist(X)) if X.shape[1] and y.size > 1 else np.zeros((y.size,) * 2)
         p.cache["complexity"] = (X, y, D)
     return p.cache["complexity"]

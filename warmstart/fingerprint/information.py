@@ -14,8 +14,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from warmstart.fingerprint.catalogue import column_sample, group, meta_feature, reduce_or_nan
-from warmstart.fingerprint.design_matrix import labelled_rows
+from warmstart.fingerprint.catalogue import group, meta_feature, reduce_or_nan
+from warmstart.fingerprint.design_matrix import labelled_rows, sampled_features
 from warmstart.fingerprint.profile import CLASSIFICATION, DatasetProfile
 
 INFORMATION = group("information", "Entropy and mutual information (discretised features)")
@@ -51,20 +51,17 @@ def _tables(p: DatasetProfile):
         rows = labelled_rows(p)
         y = p.y[rows]
         y = y.astype(np.int64) if p.task == CLASSIFICATION else equal_frequency_codes(y)
-        n_num = p.numeric.shape[1]
-        cats = [j for j, high in enumerate(p.categorical_high) if not high]
-        names = list(p.numeric_names) + [p.categorical_names[j] for j in cats]
+        numeric, categorical = sampled_features(p)
         features = []
-        for f in column_sample(names):
-            if f < n_num:
-                x = p.numeric[rows, f]
-                if p.numeric_boolean[f]:
-                    features.append(np.where(np.isnan(x), 2, x).astype(np.int64))
-                else:
-                    features.append(equal_frequency_codes(x))
+        for j in numeric:
+            x = p.numeric[rows, j]
+            if p.numeric_boolean[j]:
+                features.append(np.where(np.isnan(x), 2, x).astype(np.int64))
             else:
-                c = p.categorical[cats[f - n_num]][rows]
-                features.append(np.where(c < 0, c.max() + 1, c).astype(np.int64))
+                features.append(equal_frequency_codes(x))
+        for j in categorical:
+            c = p.categorical[j][rows]
+            features.append(np.where(c < 0, c.max() + 1, c).astype(np.int64))
         p.cache["information"] = (features, y)
     return p.cache["information"]
 
