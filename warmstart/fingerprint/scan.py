@@ -38,6 +38,8 @@ from __future__ import annotations
 import functools
 import hashlib
 import os
+import queue
+import threading
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 
@@ -575,6 +577,47 @@ def _merge_numbers(a: NumberStats, b: NumberStats) -> None:
     a.moments.merge(m.n, m.mean, m.m2, m.m3, m.m4)
 
 
+def prefetched(batches: Iterator[pa.RecordBatch]) -> Iterator[pa.RecordBatch]:
+    """The same batches, the next one read in a background thread meanwhile.
+
+    Decoding Parquet (pyarrow) and summarising a batch (numpy) both release the GIL, so
+    on two or more cores reading overlaps the work; one batch ahead at most, so memory
+    grows by one batch. An error while reading is raised here, in order.
+    """
+    ahead: queue.Queue = queue.Queue(maxsize=1)
+    stop = threading.Event()
+    done = object()
+
+    def put(item) -> bool:
+        while not stop.is_set():
+            try:
+                ahead.put(item, timeout=0.1)
+                return True
+            except queue.Full:
+                continue
+        return False  # the consumer went away
+
+    def read() -> None:
+        try:
+            for b in batches:
+                if not put(b):
+                    return
+            put(done)
+        except BaseException as exc:  # handed to the consumer, raised there
+            put(exc)
+
+    worker = threading.Thread(target=read, daemon=True, name="warmstart-read-ahead")
+    worker.start()
+    try:
+        while (item := ahead.get()) is not done:
+            if isinstance(item, BaseException):
+                raise item
+            yield item
+    finally:
+        stop.set()
+        worker.join()
+
+
 def scan(source: Source, target: str, sample_cap: int = SAMPLE_CAP) -> Scan:
     """Read every batch of ``source`` once and summarise it (see :class:`Scan`).
 
@@ -585,7 +628,7 @@ def scan(source: Source, target: str, sample_cap: int = SAMPLE_CAP) -> Scan:
     if source.directory is None:
         acc = Accumulator(layout, sample_cap)
         offset = 0
-        for batch in source.batches():
+        for batch in prefetched(source.batches()):
             acc.add(batch, offset)
             offset += batch.num_rows
         return acc.finish(source.mixed)
