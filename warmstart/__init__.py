@@ -23,8 +23,7 @@ from importlib import import_module
 from typing import TYPE_CHECKING
 
 from warmstart.errors import BadInputError, NothingToSuggestError, WarmstartError
-
-__version__ = "0.1.0"
+from warmstart.version import __version__
 
 # public name -> the module that defines it
 _LAZY = {
