@@ -65,5 +65,14 @@ class _Package(types.ModuleType):
 
 sys.modules[__name__].__class__ = _Package
 
-__all__ = ["BadInputError", "Fingerprint", "KnowledgeBase", "NothingToSuggestError",
+__all__ = ["BadInputError", "Client", "Fingerprint", "KnowledgeBase", "NothingToSuggestError",
            "WarmstartError", "__version__", "catalogue", "families", "fingerprint"]
+
+
+def __getattr__(name: str):
+    # imported on first use: the client pulls in modules a plain ``import warmstart`` skips
+    if name == "Client":
+        from warmstart.service.client import Client
+
+        return Client
+    raise AttributeError(f"module 'warmstart' has no attribute {name!r}")
