@@ -39,6 +39,12 @@ COMMANDS: dict[str, tuple[str, str, str]] = {
     "tune": ("cli.tune", "tune_cmd",
              "Tune FAMILY on DATA: warm-start suggestions first, then Bayesian optimisation."),
     "kb": ("cli.kb", "kb_group", "Create and inspect the team history."),
+    "serve": ("cli.serve", "serve_cmd",
+              "Serve the history over HTTP: a JSON API and a read-only web view at /."),
+    "map": ("cli.serve", "map_cmd",
+            "Draw the history's datasets by meta-feature distance; optionally place DATA."),
+    "report": ("cli.serve", "report_cmd",
+               "Write one self-contained HTML report of DATA against the history."),
 }
 
 

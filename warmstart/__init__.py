@@ -32,12 +32,14 @@ _LAZY = {
     "catalogue": "warmstart.fingerprint",
     "fingerprint": "warmstart.fingerprint",  # also a property of _Package below
     "KnowledgeBase": "warmstart.history",
+    "Client": "warmstart.service.client",  # pulls in the HTTP client's modules
 }
 
 if TYPE_CHECKING:  # pragma: no cover
     from warmstart.families import families
     from warmstart.fingerprint import Fingerprint, catalogue, fingerprint
     from warmstart.history import KnowledgeBase
+    from warmstart.service.client import Client
 
 
 def __getattr__(name: str):
@@ -68,11 +70,3 @@ sys.modules[__name__].__class__ = _Package
 __all__ = ["BadInputError", "Client", "Fingerprint", "KnowledgeBase", "NothingToSuggestError",
            "WarmstartError", "__version__", "catalogue", "families", "fingerprint"]
 
-
-def __getattr__(name: str):
-    # imported on first use: the client pulls in modules a plain ``import warmstart`` skips
-    if name == "Client":
-        from warmstart.service.client import Client
-
-        return Client
-    raise AttributeError(f"module 'warmstart' has no attribute {name!r}")
