@@ -57,9 +57,9 @@ def test_python_m_cli_main_runs_subcommands_kept_in_other_modules():
     helped = _run(["-m", "cli.main", "--help"])
     listed = {ln.split()[0] for ln in helped.stdout.split("Commands:")[1].splitlines()
               if ln.strip()}
-    # reference: the commands the README's tour documents
+    # reference: the commands the README's tour documents, and the service's three
     assert listed == {"backtest", "families", "fingerprint", "kb", "log", "similar",
-                      "suggest", "tune"}
+                      "suggest", "tune", "serve", "map", "report"}
 
 
 def test_the_warmstart_script_entry_point_runs_kb_info():
