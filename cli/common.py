@@ -12,17 +12,20 @@ import sys
 import warnings
 from collections.abc import Iterator
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import click
-import numpy as np
 
 from cli.output import FULL_WIDTH
 from warmstart.errors import BadInputError, WarmstartError
-from warmstart.families import FAMILIES, TASKS
-from warmstart.fingerprint import Fingerprint, fingerprint
-from warmstart.history import ENV_VAR, KnowledgeBase, resolve_path
-from warmstart.io import shown
 from warmstart.metrics import MAXIMIZE, MINIMIZE
+from warmstart.tasks import TASKS
+
+# cli.main imports this module for every command, --help included: numpy, pandas,
+# pyarrow and the history are imported inside the functions that use them
+if TYPE_CHECKING:
+    from warmstart.fingerprint import Fingerprint
+    from warmstart.history import KnowledgeBase
 
 TASK = click.Choice(list(TASKS))
 EXIT_INTERRUPTED = 130  # 128 + SIGINT, what shells report for Ctrl-C
@@ -33,6 +36,8 @@ EXIT_BAD_INPUT = 2
 
 def os_error_message(exc: OSError) -> str:
     """``OSError`` as one line: what went wrong and on which path, never a traceback."""
+    from warmstart.io import shown
+
     reason = exc.strerror or str(exc) or type(exc).__name__
     if exc.filename is None:
         return reason
@@ -52,6 +57,8 @@ def first_line(exc: BaseException) -> str:
 def quiet_numpy() -> Iterator[None]:
     """Keep numpy's floating-point warnings off stderr: overflow on extreme values is
     handled by the code (NaN where a value is undefined), not something to read."""
+    import numpy as np
+
     with np.errstate(all="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
         yield
@@ -151,6 +158,8 @@ def direction_options(func):
 
 
 def kb_option(func):
+    from warmstart.history import ENV_VAR
+
     return click.option(
         "--kb", "kb_path", type=click.Path(path_type=Path), default=None,
         help=f"History directory [default: ${ENV_VAR}, else ./knowledge_base].")(func)
@@ -165,6 +174,8 @@ def json_option(func):
 
 
 def family_option(func):
+    from warmstart.families import FAMILIES
+
     return click.option("--family", "-f", required=True,
                         help=f"Model family: {', '.join(FAMILIES)} (their spaces: "
                              "'warmstart families').")(func)
@@ -204,6 +215,8 @@ def dataset_input(data, target, fingerprint_file) -> Path | None:
 
 def query_fingerprint(data, target, task, fingerprint_file) -> Fingerprint:
     """The fingerprint a command compares: read from --fingerprint, else of DATA."""
+    from warmstart.fingerprint import Fingerprint, fingerprint
+
     need_data(data, target, fingerprint_file)
     if fingerprint_file is not None:
         return Fingerprint.from_json_file(fingerprint_file)
@@ -219,4 +232,6 @@ def task_line(fp: Fingerprint, task: str | None, fingerprint_file) -> str:
 
 def open_history(kb_path: Path | None) -> KnowledgeBase:
     """The history at --kb, else $WARMSTART_KB, else ./knowledge_base."""
+    from warmstart.history import KnowledgeBase, resolve_path
+
     return KnowledgeBase(resolve_path(kb_path))

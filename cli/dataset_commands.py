@@ -24,6 +24,7 @@ from cli.common import (
 from cli.output import emit_json, fmt, plural, table
 from warmstart.errors import NothingToSuggestError
 from warmstart.fingerprint import CATALOGUE_VERSION, GROUPS
+from warmstart.fingerprint.catalogue import BASIS_NOTES
 from warmstart.strategies import DEFAULT_STRATEGY, STRATEGIES
 
 
@@ -71,8 +72,8 @@ def _echo_catalogue(as_json: bool) -> None:
                                     "description"], align="lllll"))
             click.echo()
     click.echo(f"{len(cat)} meta-features in {len(GROUPS)} groups, catalogue version "
-               f"{CATALOGUE_VERSION}; basis: exact = every row, sketch = exact up to "
-               "4096 levels, sample = seeded sample of 5000 rows")
+               f"{CATALOGUE_VERSION}; basis: "
+               + ", ".join(f"{b} = {note}" for b, note in BASIS_NOTES.items()))
 
 
 # -- log --------------------------------------------------------------------------------

@@ -9,22 +9,64 @@ The public API mirrors the command line one to one::
     kb.similar(df, target="churned", k=5)
     kb.suggest(df, target="churned", family="random_forest", k=10)
     kb.info()
+
+The public names are loaded on first use (module ``__getattr__``, PEP 562), so that
+``import warmstart`` and the command line's start-up do not pay for numpy, pandas and
+pyarrow until a command needs them.
 """
 
-from warmstart.errors import BadInputError, NothingToSuggestError, WarmstartError  # noqa: E402
-from warmstart.families import families  # noqa: E402
-from warmstart.fingerprint import Fingerprint, catalogue, fingerprint  # noqa: E402
-from warmstart.history import KnowledgeBase  # noqa: E402
-from warmstart.version import __version__  # noqa: E402
+from __future__ import annotations
+
+import sys
+import types
+from importlib import import_module
+from typing import TYPE_CHECKING
+
+from warmstart.errors import BadInputError, NothingToSuggestError, WarmstartError
+from warmstart.version import __version__
+
+# public name -> the module that defines it
+_LAZY = {
+    "families": "warmstart.families",  # also a property of _Package below
+    "Fingerprint": "warmstart.fingerprint",
+    "catalogue": "warmstart.fingerprint",
+    "fingerprint": "warmstart.fingerprint",  # also a property of _Package below
+    "KnowledgeBase": "warmstart.history",
+    "Client": "warmstart.service.client",  # pulls in the HTTP client's modules
+}
+
+if TYPE_CHECKING:  # pragma: no cover
+    from warmstart.families import families
+    from warmstart.fingerprint import Fingerprint, catalogue, fingerprint
+    from warmstart.history import KnowledgeBase
+    from warmstart.service.client import Client
+
+
+def __getattr__(name: str):
+    if name not in _LAZY:
+        raise AttributeError(f"module 'warmstart' has no attribute {name!r}")
+    value = getattr(import_module(_LAZY[name]), name)
+    globals()[name] = value  # later look-ups skip this function
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_LAZY))
+
+
+class _Package(types.ModuleType):
+    """``warmstart.families`` and ``warmstart.fingerprint`` name both a subpackage and a
+    function; importing the subpackage sets the package attribute to the module, so these
+    two stay functions through a property whose setter ignores that assignment."""
+
+    families = property(lambda self: import_module("warmstart.families").families,
+                        lambda self, value: None)
+    fingerprint = property(lambda self: import_module("warmstart.fingerprint").fingerprint,
+                           lambda self, value: None)
+
+
+sys.modules[__name__].__class__ = _Package
 
 __all__ = ["BadInputError", "Client", "Fingerprint", "KnowledgeBase", "NothingToSuggestError",
            "WarmstartError", "__version__", "catalogue", "families", "fingerprint"]
 
-
-def __getattr__(name: str):
-    # imported on first use: the client pulls in modules a plain ``import warmstart`` skips
-    if name == "Client":
-        from warmstart.service.client import Client
-
-        return Client
-    raise AttributeError(f"module 'warmstart' has no attribute {name!r}")

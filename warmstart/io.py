@@ -16,13 +16,15 @@ import stat
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import pandas as pd
 import pyarrow as pa
-import pyarrow.dataset as ds
 import pyarrow.parquet as pq
 
 from warmstart.errors import BadInputError
+
+if TYPE_CHECKING:  # pandas loads in seconds: imported in the functions that use it
+    import pandas as pd
 
 PARQUET_SUFFIXES = (".parquet", ".pq")
 CSV_SUFFIXES = (".csv", ".tsv", ".txt")
@@ -50,6 +52,8 @@ def read_table(path: str | os.PathLike) -> pd.DataFrame:
     Raises :class:`BadInputError` with a one-line reason for a missing, empty,
     undecodable or malformed file, or one with duplicate column names.
     """
+    import pandas as pd
+
     p = Path(path)
     st = regular_file(p, allow_dir=True)
     if stat.S_ISDIR(st.st_mode):
@@ -114,6 +118,8 @@ def regular_file(path: str | os.PathLike, what: str = "file",
 
 
 def _read_csv(p: Path) -> pd.DataFrame:
+    import pandas as pd
+
     sep = "\t" if p.suffix.lower() == ".tsv" else ","
     with open(p, "rb") as fh:
         head = fh.read(65536)
@@ -319,6 +325,8 @@ def _partitions(root: Path, files: list[str], keys: list[str], path
                 ) -> tuple[list[pa.Field], dict[str, dict]]:
     """The partition fields as pyarrow.dataset types them (integers when every value is
     one, else text) and each file's partition values."""
+    import pyarrow.dataset as ds
+
     if not keys:
         return [], {}
     try:

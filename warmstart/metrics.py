@@ -9,8 +9,6 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from sklearn.metrics import get_scorer_names
-
 from warmstart.errors import BadInputError
 from warmstart.tasks import CLASSIFICATION, REGRESSION
 
@@ -59,6 +57,8 @@ def resolve_metric(name: str, direction: str | None = None) -> Metric:
     """
     if direction not in (None, MAXIMIZE, MINIMIZE):
         raise BadInputError(f"direction must be 'maximize' or 'minimize', not {direction!r}")
+    from sklearn.metrics import get_scorer_names  # scikit-learn loads in seconds: only here
+
     if name in get_scorer_names():
         if direction == MINIMIZE:
             raise BadInputError(

@@ -26,7 +26,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from sklearn.pipeline import Pipeline
 
 from warmstart.errors import BadInputError
 from warmstart.families import FAMILIES, TASKS, Family
@@ -318,6 +317,8 @@ def search_table_trials(df: pd.DataFrame, metric: str, keywords: Mapping[str, An
 
 def final_estimator(estimator: Any) -> tuple[Any, str]:
     """The model at the end of (possibly nested) pipelines, and its step path."""
+    from sklearn.pipeline import Pipeline  # loads scikit-learn: only when a search is read
+
     path = []
     while isinstance(estimator, Pipeline):
         name, estimator = estimator.steps[-1]

@@ -26,6 +26,7 @@ from warmstart.errors import NothingToSuggestError
 from warmstart.families.base import Family
 from warmstart.fingerprint import Fingerprint
 from warmstart.metrics import DEFAULT_METRIC
+from warmstart.prediction_cache import PredictionStore
 from warmstart.similarity import nearest
 from warmstart.spaces import user_space
 from warmstart.strategies import Strategy, SuggestContext, Suggestion, TrialIndex, prepare_trials
@@ -150,7 +151,8 @@ def suggest(kb: Any, query: Fingerprint, family: Family, strategy: Strategy, *, 
         # configs stay JSON text until a strategy reads them (most read a few rows)
         prepare_trials(t["trials"], studies, parse_configs=False),
         kb.fingerprints(datasets), dict(zip(datasets["dataset_id"], datasets["name"])),
-        metric=metric, space=space, seed=seed)
+        metric=metric, space=space, seed=seed,
+        surrogates=SurrogateCache(PredictionStore(kb.path)))  # predictions kept on disk
     return ranked(strategy, ctx, k, max_fit_seconds)
 
 

@@ -18,7 +18,10 @@ Models (``kind``):
 
 A study with fewer than ``MIN_TRIALS`` trials, or whose trials all scored the same,
 gets a constant model predicting the mean of its normalised scores: too little to
-learn a response surface from.
+learn a response surface from. A study of more than ``MAX_FIT_TRIALS`` trials is fitted
+on a seeded sample of that many (:func:`fit_rows`), so the cost of a fit is bounded
+whatever a study holds. :class:`SurrogateCache` keeps predictions in memory and, given a
+:class:`~warmstart.prediction_cache.PredictionStore`, next to the history on disk.
 """
 
 from __future__ import annotations
@@ -30,9 +33,11 @@ from typing import Any
 import numpy as np
 
 from warmstart.errors import BadInputError
+from warmstart.prediction_cache import PredictionStore
 from warmstart.spaces import SearchSpace
 
 MIN_TRIALS = 5
+MAX_FIT_TRIALS = 2000
 N_TREES = 50
 KINDS = ("forest", "gp")
 
@@ -109,19 +114,33 @@ def fit_surrogate(configs: Sequence[Mapping[str, Any]], normalised: np.ndarray,
     return StudySurrogate(space, kind, model)
 
 
+def fit_rows(n_trials: int, seed: int = 0, cap: int = MAX_FIT_TRIALS) -> np.ndarray:
+    """Which of a study's ``n_trials`` rows its surrogate is fitted on, increasing.
+
+    All of them up to ``cap``; beyond, a uniform sample of ``cap`` drawn with ``seed``
+    (the same rows every time for the same study and seed).
+    """
+    if n_trials <= cap:
+        return np.arange(n_trials)
+    return np.sort(np.random.default_rng(seed).choice(n_trials, size=cap, replace=False))
+
+
 class SurrogateCache:
     """Fitted study surrogates and their predictions, by (study id, kind).
 
     A study's surrogate depends only on that study's trials, never on the query, so one
     cache can serve many questions: the backtest shares one over all held-out datasets.
     Surrogates fitted on other scores of the same trials (e.g. median-anchored ones) go
-    in a :meth:`section` of their own.
+    in a :meth:`section` of their own. With a ``store``, a study's predictions are also
+    read from and written to disk, under a name that includes what :meth:`predict`'s
+    ``identity`` returns (what the fit depends on), so they survive the process.
     """
 
-    def __init__(self) -> None:
+    def __init__(self, store: PredictionStore | None = None, prefix: str = "") -> None:
         self._models: dict[tuple[str, str], StudySurrogate] = {}
         self._predictions: dict[tuple[str, str], dict[str, float]] = {}
         self._sections: dict[str, SurrogateCache] = {}
+        self.store, self.prefix = store, prefix
 
     def model(self, study_id: str, kind: str,
               fit: Callable[[], StudySurrogate]) -> StudySurrogate:
@@ -131,19 +150,34 @@ class SurrogateCache:
         return self._models[(study_id, kind)]
 
     def predict(self, study_id: str, kind: str, configs: Sequence[Mapping[str, Any]],
-                keys: Sequence[str], fit: Callable[[], StudySurrogate]) -> np.ndarray:
+                keys: Sequence[str], fit: Callable[[], StudySurrogate],
+                identity: Callable[[], tuple[int, str, str]] | None = None) -> np.ndarray:
         """Predictions of one study's surrogate, shape (len(configs),), cached by the
-        configurations' canonical ``keys``."""
-        cached = self._predictions.setdefault((study_id, kind), {})
+        configurations' canonical ``keys``.
+
+        ``identity()`` gives (seed, space id, fit identity) for the on-disk store; without
+        it, or without a store, predictions are kept in memory only.
+        """
+        persist = None
+        if self.store is not None and identity is not None:
+            persist = (study_id, self.prefix + kind, *identity())
+        cached = self._predictions.get((study_id, kind))
+        if cached is None:
+            cached = self.store.load(*persist) if persist is not None else {}
+            self._predictions[(study_id, kind)] = cached
         todo = [i for i, key in enumerate(keys) if key not in cached]
         if todo:
             pred = self.model(study_id, kind, fit).predict([configs[i] for i in todo])
             cached.update({keys[i]: float(v) for i, v in zip(todo, pred)})
+            if persist is not None:
+                self.store.save(*persist, cached)
         return np.array([cached[key] for key in keys], dtype=float)
 
     def section(self, name: str) -> SurrogateCache:
         """A cache of its own for surrogates fitted on other scores, kept in this one."""
-        return self._sections.setdefault(name, SurrogateCache())
+        return self._sections.setdefault(
+            name, SurrogateCache(self.store, f"{self.prefix}{name}/"))
 
 
-__all__ = ["KINDS", "MIN_TRIALS", "StudySurrogate", "SurrogateCache", "fit_surrogate"]
+__all__ = ["KINDS", "MAX_FIT_TRIALS", "MIN_TRIALS", "StudySurrogate", "SurrogateCache",
+           "fit_rows", "fit_surrogate"]

@@ -20,12 +20,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from sklearn.utils._param_validation import (
-    Interval,
-    InvalidParameterError,
-    make_constraint,
-    validate_parameter_constraints,
-)
 
 from warmstart.errors import BadInputError
 from warmstart.families.base import Family
@@ -194,6 +188,8 @@ class EstimatorRules:
     """
 
     def __init__(self, family: Family, task: str):
+        from sklearn.utils._param_validation import make_constraint  # loads scikit-learn
+
         estimator = family.make_estimator(task, {})
         self.estimator = type(estimator).__name__
         self.defaults: dict[str, Any] = estimator.get_params(deep=False)
@@ -224,6 +220,11 @@ class EstimatorRules:
         return verdict
 
     def _verdict(self, name: str, cell: Any) -> tuple[Any, str | None]:
+        from sklearn.utils._param_validation import (  # loads scikit-learn
+            InvalidParameterError,
+            validate_parameter_constraints,
+        )
+
         value = _cell_value(cell)
         if value is _BLANK:
             return (None if self.defaults.get(name) is None else _UNSET), None
@@ -250,6 +251,8 @@ class EstimatorRules:
         ``Interval`` checks the type, then the bounds), so when one does, scikit-learn is
         asked about the two ends only; otherwise each value is checked on its own.
         """
+        from sklearn.utils._param_validation import Interval  # loads scikit-learn
+
         ends = distinct[[0, -1]].tolist() if distinct.size > 2 else None
         if ends and type(ends[0]) in (int, float) and all(map(math.isfinite, ends)):
             for c in self._constraints.get(name, ()):

@@ -31,26 +31,27 @@ import warnings
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
-from sklearn.metrics import get_scorer_names
-from sklearn.model_selection import KFold, StratifiedKFold, cross_validate
 from threadpoolctl import threadpool_limits
 
-from warmstart.bayes import BayesianOptimizer, random_config
 from warmstart.errors import BadInputError, NothingToSuggestError
 from warmstart.families import Family, get_family
 from warmstart.fingerprint import Fingerprint, fingerprint, load_frame
 from warmstart.history import KnowledgeBase, LoggedStudy
 from warmstart.io import check_writable
 from warmstart.metrics import DEFAULT_METRIC, resolve_metric
-from warmstart.pipelines import make_pipeline
 from warmstart.spaces import SearchSpace, config_key
 from warmstart.storage import write_bytes_atomic
 from warmstart.strategies import user_space
 from warmstart.trials import FAILED, OK
+
+# scikit-learn (and the Bayesian optimiser and pipelines built on it) loads in seconds:
+# imported in the functions that run trials, so the command line starts without it.
+if TYPE_CHECKING:
+    from sklearn.model_selection import KFold, StratifiedKFold
 
 # The search is named for its method: Gaussian-process expected improvement.
 GP_EI, RANDOM = "gp-ei", "random"
@@ -300,6 +301,8 @@ def _load(data: pd.DataFrame | str | os.PathLike, target: str, task: str | None,
     if target not in df.columns:
         raise BadInputError(f"target column {target!r} not found; columns are: "
                             f"{', '.join(map(str, df.columns[:20]))}")
+    from sklearn.metrics import get_scorer_names
+
     fp = fingerprint(df, target=target, task=task)
     metric_name = metric or DEFAULT_METRIC[fp.task]
     if metric_name not in get_scorer_names():
@@ -332,6 +335,8 @@ class _Folds:
 def _folds(df: pd.DataFrame, target: str, fam: Family, task: str, scoring: str, cv: int,
            seed: int, jobs: int, notes: list[str]) -> _Folds:
     """Labelled rows and seeded, shuffled folds: stratified for classification."""
+    from sklearn.model_selection import KFold, StratifiedKFold
+
     labelled = df[df[target].notna()]
     if len(labelled) < len(df):
         notes.append(f"{len(df) - len(labelled)} rows with a missing target left out")
@@ -401,6 +406,8 @@ class _Proposer:
 
     def __init__(self, space: SearchSpace, search: str, queue: list[dict[str, Any]],
                  queue_origin: str, seed: int):
+        from warmstart.bayes import BayesianOptimizer
+
         self.space, self.search = space, search
         self.queue, self.queue_origin = list(queue), queue_origin
         self.optimizer = BayesianOptimizer(space, seed=seed)
@@ -417,6 +424,8 @@ class _Proposer:
             scores = [t.score for t in trials]
             config = self.optimizer.propose([t.config for t in trials], scores)
             return config, GP_EI if self.optimizer.uses_surrogate(scores) else RANDOM
+        from warmstart.bayes import random_config
+
         return random_config(self.space, self.rng, seen), RANDOM
 
 
@@ -444,6 +453,10 @@ def _run_trials(result: TuneResult, proposer: _Proposer, folds: _Folds,
 
 def _evaluate(folds: _Folds, config: dict[str, Any], index: int, origin: str) -> TuneTrial:
     """Cross-validate one configuration; an exception makes a failed trial."""
+    from sklearn.model_selection import cross_validate
+
+    from warmstart.pipelines import make_pipeline
+
     t0 = time.monotonic()
     try:
         pipe = make_pipeline(folds.family, folds.task, config, folds.X, seed=folds.seed)

@@ -13,7 +13,11 @@ Each meta-feature states its ``basis``: ``"exact"`` -- computed from one-pass me
 summaries of every row (equal, up to rounding, however the rows are batched or
 ordered); ``"sketch"`` -- exact while counts stay small (levels, patterns, distinct rows
 up to 4096), estimated beyond; ``"sample"`` -- computed on the seeded sample of at most
-``SAMPLE_CAP`` rows (all rows for smaller tables).
+``SAMPLE_CAP`` rows (all rows for smaller tables); ``"column_sample"`` -- measures over
+pairs of columns or over every feature (correlations, principal components, mutual
+information, class complexity), computed on the row sample and, in a table of more than
+``COLUMN_CAP`` such columns, on a seeded sample of ``COLUMN_CAP`` of them
+(:func:`column_sample`), so their cost is bounded in columns as well as rows.
 
 ``CATALOGUE_VERSION`` counts changes to the catalogue: bump it whenever a meta-feature
 is added, removed, or changes meaning, and regenerate the shipped demo history.
@@ -27,8 +31,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from warmstart.fingerprint.profile import DatasetProfile
+from warmstart.fingerprint.sketches import key_of, mix64
 
 CATALOGUE_VERSION = 1
+COLUMN_CAP = 500
+COLUMN_SEED = np.uint64(0x5EED_C0_1D)
 BOTH, CLASSIFICATION, REGRESSION = "both", "classification", "regression"
 SUMMARY_STATS = ("min", "q1", "median", "q3", "max", "mean")
 
@@ -95,7 +102,35 @@ def group(name: str, title: str) -> str:
     return name
 
 
-BASES = ("exact", "sketch", "sample")
+BASES = ("exact", "sketch", "sample", "column_sample")
+BASIS_NOTES = {
+    "exact": "every row",
+    "sketch": "exact up to 4096 levels",
+    "sample": "seeded sample of at most 5000 rows",
+    "column_sample": f"the row sample, and a seeded sample of {COLUMN_CAP} columns when "
+                     "there are more",
+}
+
+
+def column_sample(names: list[str], cap: int = COLUMN_CAP) -> np.ndarray:
+    """Positions of the columns a ``"column_sample"`` measure uses, in table order.
+
+    All of them when there are at most ``cap``; else the ``cap`` names of smallest seeded
+    hash priority ``mix64(key_of(name) ^ COLUMN_SEED)``, so the choice depends on the
+    names alone, not on the order of the columns.
+
+    Parameters
+    ----------
+    names : list of str, length n_columns
+
+    Returns
+    -------
+    ndarray of int, shape (min(n_columns, cap),), increasing
+    """
+    if len(names) <= cap:
+        return np.arange(len(names))
+    priority = mix64(np.array([key_of(n) for n in names], dtype=np.uint64) ^ COLUMN_SEED)
+    return np.sort(np.argsort(priority, kind="stable")[:cap])
 
 
 def meta_feature(name: str, group: str, description: str, method: str, value_range: str,

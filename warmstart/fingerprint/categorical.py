@@ -5,7 +5,6 @@ is a k-minimum-values estimate and the entropy is computed on the sample.
 """
 
 import numpy as np
-from scipy import stats
 
 from warmstart.fingerprint.catalogue import column_summary, group, meta_feature
 from warmstart.fingerprint.profile import DatasetProfile
@@ -22,6 +21,8 @@ def categorical_levels(p: DatasetProfile) -> np.ndarray:
 
 def normalised_entropy(counts: np.ndarray) -> float:
     """Shannon entropy of counts over its maximum ln(levels), levels = non-zero counts."""
+    from scipy import stats  # scipy.stats loads in seconds: only when computed
+
     counts = np.asarray(counts, dtype=float)
     counts = counts[counts > 0]
     return float(stats.entropy(counts) / np.log(counts.size)) if counts.size > 1 else 0.0

@@ -4,14 +4,13 @@ Ho & Basu, IEEE TPAMI 24(3), 2002; the multiclass forms of Lorena, Garcia, Lehma
 Souto & Ho, ACM Computing Surveys 52(5), 2019. Computed on the ``COMPLEXITY_ROWS``
 labelled sample rows of smallest sampling priority (a seeded sub-sample; all labelled
 rows when fewer), in :func:`design_matrix.design`'s space (numeric columns standardised,
-categorical ones one-hot). Distances are Euclidean.
+categorical ones one-hot; of a table of more than ``COLUMN_CAP`` feature columns, a
+seeded sample of ``COLUMN_CAP`` of them). Distances are Euclidean.
 """
 
 from __future__ import annotations
 
 import numpy as np
-from scipy.sparse.csgraph import minimum_spanning_tree
-from scipy.spatial.distance import pdist, squareform
 
 from warmstart.fingerprint.catalogue import CLASSIFICATION, group, meta_feature
 from warmstart.fingerprint.design_matrix import design, labelled_rows
@@ -48,6 +47,8 @@ def boundary_fraction(D: np.ndarray, y: np.ndarray) -> float:
     ``D`` is the (n, n) distance matrix; zero distances (duplicate points) are replaced by
     a tiny positive value, since a zero entry is "no edge" to scipy's spanning tree.
     """
+    from scipy.sparse.csgraph import minimum_spanning_tree  # only when computed
+
     W = np.where(D > 0, D, 1e-12 * (D.max() or 1.0))
     np.fill_diagonal(W, 0.0)
     tree = minimum_spanning_tree(W).tocoo()
@@ -58,6 +59,8 @@ def boundary_fraction(D: np.ndarray, y: np.ndarray) -> float:
 
 def _subset(p: DatasetProfile) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(X, y, distance matrix) of the complexity sub-sample, cached."""
+    from scipy.spatial.distance import pdist, squareform  # only when computed
+
     if "complexity" not in p.cache:
         X, y = design(p)
         pri = p.sample_priority[labelled_rows(p)]
@@ -78,7 +81,7 @@ def _usable(p: DatasetProfile) -> bool:
               "Feature overlap by the maximum Fisher's discriminant ratio (F1)",
               "1 / (1 + max_f r_f), r_f Fisher's discriminant ratio of feature f (Ho & "
               "Basu 2002, F1; multiclass form of Lorena et al. 2019); low = a feature "
-              "separates the classes", "(0, 1]", CLASSIFICATION, basis="sample")
+              "separates the classes", "(0, 1]", CLASSIFICATION, basis="column_sample")
 def fisher_overlap(p: DatasetProfile) -> float:
     if not _usable(p):
         return float("nan")
@@ -89,7 +92,7 @@ def fisher_overlap(p: DatasetProfile) -> float:
 @meta_feature("boundary_fraction", COMPLEXITY,
               "Share of points on the class boundary of a minimum spanning tree (N1)",
               "points with an MST edge to another class / points (Ho & Basu 2002, N1)",
-              "[0, 1]", CLASSIFICATION, basis="sample")
+              "[0, 1]", CLASSIFICATION, basis="column_sample")
 def boundary_fraction_mf(p: DatasetProfile) -> float:
     if not _usable(p):
         return float("nan")
@@ -111,7 +114,7 @@ def _nearest_distances(D: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.nda
               "Nearest same-class over nearest other-class distances (N2)",
               "r / (1 + r), r = sum_i d(i, nearest same class) / sum_i d(i, nearest other "
               "class) (Ho & Basu 2002, N2; bounded form of Lorena et al. 2019)", "[0, 1)",
-              CLASSIFICATION, basis="sample")
+              CLASSIFICATION, basis="column_sample")
 def intra_extra_ratio(p: DatasetProfile) -> float:
     if not _usable(p):
         return float("nan")
@@ -128,7 +131,7 @@ def intra_extra_ratio(p: DatasetProfile) -> float:
               "Leave-one-out error rate of a 1-nearest-neighbour classifier (N3)",
               "share of points whose nearest other point has another class (Ho & Basu "
               "2002, N3); ties go to the earlier row", "[0, 1]", CLASSIFICATION,
-              basis="sample")
+              basis="column_sample")
 def nearest_neighbour_error(p: DatasetProfile) -> float:
     if not _usable(p):
         return float("nan")

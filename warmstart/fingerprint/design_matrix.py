@@ -5,7 +5,9 @@ boolean columns imputed by their median and standardised (zero mean, unit varian
 column constant in the sample is dropped), then each categorical column that is not
 high-cardinality one-hot encoded -- its ``MAX_ONE_HOT_LEVELS`` most frequent levels,
 one "other" column for the rest and one for missing values. Only rows with a target are
-kept. All of it runs on the seeded sample, so its cost does not grow with the table.
+kept. All of it runs on the seeded sample, so its cost does not grow with the table's
+rows; of a table of more than ``COLUMN_CAP`` feature columns it uses a seeded sample of
+``COLUMN_CAP`` of them (:func:`catalogue.column_sample`), so it is bounded in columns too.
 """
 
 from __future__ import annotations
@@ -14,6 +16,7 @@ import warnings
 
 import numpy as np
 
+from warmstart.fingerprint.catalogue import column_sample
 from warmstart.fingerprint.profile import CLASSIFICATION, DatasetProfile
 
 MAX_ONE_HOT_LEVELS = 10
@@ -70,14 +73,24 @@ def one_hot(codes: np.ndarray, max_levels: int = MAX_ONE_HOT_LEVELS) -> np.ndarr
     return np.column_stack(cols).astype(float) if cols else np.empty((codes.size, 0))
 
 
+def sampled_features(p: DatasetProfile) -> tuple[np.ndarray, list[int]]:
+    """The feature columns the column-sampled measures use: positions in ``p.numeric``
+    and indices of categorical columns (high-cardinality ones left out), each in table
+    order -- all of them up to ``COLUMN_CAP`` features (:func:`catalogue.column_sample`)."""
+    n_num = p.numeric.shape[1]
+    cats = [j for j, high in enumerate(p.categorical_high) if not high]
+    chosen = column_sample(list(p.numeric_names) + [p.categorical_names[j] for j in cats])
+    return chosen[chosen < n_num], [cats[f - n_num] for f in chosen[chosen >= n_num]]
+
+
 def design(p: DatasetProfile) -> tuple[np.ndarray, np.ndarray]:
     """(X, y) on labelled sample rows; X of shape (n_labelled, n_design_columns)."""
     if "design" not in p.cache:
         rows = labelled_rows(p)
-        blocks = [standardised(p.numeric[rows])]
-        for codes, high in zip(p.categorical, p.categorical_high):
-            if not high:
-                blocks.append(one_hot(codes[rows]))
+        numeric, categorical = sampled_features(p)
+        blocks = [standardised(p.numeric[rows][:, numeric])]
+        for j in categorical:
+            blocks.append(one_hot(p.categorical[j][rows]))
         X = np.hstack(blocks) if blocks else np.empty((int(rows.sum()), 0))
         p.cache["design"] = (X, p.y[rows])
     return p.cache["design"]

@@ -4,17 +4,18 @@ Every feature is discretised on the sample's labelled rows: numeric columns into
 ``BINS`` equal-frequency bins (edges at the 10 %, 20 %, ... quantiles; tied edges merged,
 so a column with few values gets fewer bins), boolean columns into their two values,
 categorical columns (not high-cardinality) into their levels; a missing value is a bin of
-its own. A regression target is discretised the same way. Entropies are in nats, from
-plug-in (maximum-likelihood) probabilities.
+its own. In a table of more than ``COLUMN_CAP`` such features, a seeded sample of
+``COLUMN_CAP`` of them is used (:func:`catalogue.column_sample`). A regression target is
+discretised the same way. Entropies are in nats, from plug-in (maximum-likelihood)
+probabilities.
 """
 
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
 from warmstart.fingerprint.catalogue import group, meta_feature, reduce_or_nan
-from warmstart.fingerprint.design_matrix import labelled_rows
+from warmstart.fingerprint.design_matrix import labelled_rows, sampled_features
 from warmstart.fingerprint.profile import CLASSIFICATION, DatasetProfile
 
 INFORMATION = group("information", "Entropy and mutual information (discretised features)")
@@ -33,6 +34,8 @@ def equal_frequency_codes(x: np.ndarray, bins: int = BINS) -> np.ndarray:
 
 def entropy_of(codes: np.ndarray) -> float:
     """Shannon entropy (nats) of non-negative integer codes."""
+    from scipy import stats  # scipy.stats loads in seconds: only when computed
+
     return float(stats.entropy(np.bincount(codes)))
 
 
@@ -48,17 +51,17 @@ def _tables(p: DatasetProfile):
         rows = labelled_rows(p)
         y = p.y[rows]
         y = y.astype(np.int64) if p.task == CLASSIFICATION else equal_frequency_codes(y)
+        numeric, categorical = sampled_features(p)
         features = []
-        for j in range(p.numeric.shape[1]):
+        for j in numeric:
             x = p.numeric[rows, j]
             if p.numeric_boolean[j]:
                 features.append(np.where(np.isnan(x), 2, x).astype(np.int64))
             else:
                 features.append(equal_frequency_codes(x))
-        for codes, high in zip(p.categorical, p.categorical_high):
-            if not high:
-                c = codes[rows]
-                features.append(np.where(c < 0, c.max() + 1, c).astype(np.int64))
+        for j in categorical:
+            c = p.categorical[j][rows]
+            features.append(np.where(c < 0, c.max() + 1, c).astype(np.int64))
         p.cache["information"] = (features, y)
     return p.cache["information"]
 
@@ -78,7 +81,7 @@ def _mi(p: DatasetProfile) -> np.ndarray:
 @meta_feature("feature_entropy_mean", INFORMATION,
               "Mean normalised entropy of the discretised features",
               "mean over features of H(X) / ln(bins used) (Shannon 1948); 0 for one bin",
-              "[0, 1]", basis="sample")
+              "[0, 1]", basis="column_sample")
 def feature_entropy_mean(p: DatasetProfile) -> float:
     features, _ = _tables(p)
     if not features:
@@ -93,14 +96,14 @@ def feature_entropy_mean(p: DatasetProfile) -> float:
 @meta_feature("mutual_information_mean", INFORMATION,
               "Mean mutual information between a feature and the target",
               "mean over features of I(X; y) = H(X) + H(y) - H(X, y), nats", "[0, inf)",
-              basis="sample")
+              basis="column_sample")
 def mutual_information_mean(p: DatasetProfile) -> float:
     return reduce_or_nan(_mi(p), np.mean)
 
 
 @meta_feature("mutual_information_max", INFORMATION,
               "Largest mutual information between one feature and the target",
-              "max over features of I(X; y), nats", "[0, inf)", basis="sample")
+              "max over features of I(X; y), nats", "[0, inf)", basis="column_sample")
 def mutual_information_max(p: DatasetProfile) -> float:
     return reduce_or_nan(_mi(p), np.max)
 
@@ -108,7 +111,7 @@ def mutual_information_max(p: DatasetProfile) -> float:
 @meta_feature("equivalent_feature_count", INFORMATION,
               "Features needed, at the mean information each, to determine the target",
               "H(y) / mean I(X; y) (Michie et al. 1994); NaN when no feature informs",
-              "[0, inf)", basis="sample")
+              "[0, inf)", basis="column_sample")
 def equivalent_feature_count(p: DatasetProfile) -> float:
     _, y = _tables(p)
     mi = _mi(p)
@@ -119,7 +122,7 @@ def equivalent_feature_count(p: DatasetProfile) -> float:
 @meta_feature("noise_signal_ratio", INFORMATION,
               "Non-target information in the features relative to target information",
               "(mean H(X) - mean I(X; y)) / mean I(X; y) (Michie et al. 1994); NaN when no "
-              "feature informs", "[0, inf)", basis="sample")
+              "feature informs", "[0, inf)", basis="column_sample")
 def noise_signal_ratio(p: DatasetProfile) -> float:
     mi = _mi(p)
     mean = mi.mean() if mi.size else 0.0

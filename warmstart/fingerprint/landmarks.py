@@ -119,4 +119,4 @@ _LANDMARKS = (
 )
 for _name, _description, _method, _range, _tasks, _factory in _LANDMARKS:
     meta_feature(_name, LANDMARKS, _description, f"{_method}; {_SCORE}", _range, _tasks,
-                 basis="sample")(functools.partial(out_of_fold_score, make_model=_factory))
+                 basis="column_sample")(functools.partial(out_of_fold_score, make_model=_factory))

@@ -366,7 +366,7 @@ def _role(s: Scan, c: int) -> str:
 
 
 def _number_role(s: Scan, c: int) -> str:
-    label, j, st = s.names[c], s.number_cols.index(c), s.number
+    label, j, st = s.names[c], s.number_slot(c), s.number
     finite, lo, hi = st.finite[j], st.minimum[j], st.maximum[j]
     if finite == 0:
         return EMPTY
@@ -385,7 +385,7 @@ def _number_role(s: Scan, c: int) -> str:
 
 
 def _text_role(s: Scan, c: int) -> str:
-    t, nonnull = s.text_cols.index(c), s.nonnull[c]
+    t, nonnull = s.text_slot(c), s.nonnull[c]
     if nonnull == 0:
         return EMPTY
     distinct, exact = s.column_distinct(c)
@@ -410,7 +410,7 @@ def _add_column(s: Scan, c: int, role: str, cols: _Columns) -> None:
     if s.kinds[c] == "unsupported":
         cols.note("unsupported column types read as text", label)
     if s.kinds[c] == NUMBER:
-        j = s.number_cols.index(c)
+        j = s.number_slot(c)
         if s.number.infinite[j]:
             cols.note("infinite values treated as missing in",
                       f"{label} ({int(s.number.infinite[j])})")
@@ -428,7 +428,7 @@ def _add_column(s: Scan, c: int, role: str, cols: _Columns) -> None:
 
 
 def _add_number(s: Scan, c: int, role: str, cols: _Columns) -> None:
-    label, j, st = s.names[c], s.number_cols.index(c), s.number
+    label, j, st = s.names[c], s.number_slot(c), s.number
     values = s.sample_numbers[:, j].copy()
     values[~np.isfinite(values)] = np.nan
     if role == BOOLEAN:
@@ -444,7 +444,7 @@ def _add_number(s: Scan, c: int, role: str, cols: _Columns) -> None:
 
 
 def _add_text(s: Scan, c: int, role: str, cols: _Columns) -> None:
-    label, t, nonnull = s.names[c], s.text_cols.index(c), s.nonnull[c]
+    label, t, nonnull = s.names[c], s.text_slot(c), s.nonnull[c]
     raw = s.sample_text[:, t]
     if role == BOOLEAN:
         cols.numeric.append((label, text_as_booleans(raw), None))
@@ -533,7 +533,7 @@ def _target(s: Scan, t: int, task: str | None):
     """(sample y, classes, exact class counts, moments, zeros, missing, task)."""
     name = s.target
     if s.kinds[t] == NUMBER:
-        j = s.number_cols.index(t)
+        j = s.number_slot(t)
         st, raw = s.number, s.sample_numbers[:, j]
         mom = st.moments
         stats = (np.array([mom.n[j], mom.mean[j], mom.m2[j], mom.m3[j], mom.m4[j]]),
@@ -542,7 +542,7 @@ def _target(s: Scan, t: int, task: str | None):
     elif s.kinds[t] == DATETIME:
         raise BadInputError(f"target column {name!r} holds dates, which cannot be a target")
     else:
-        k = s.text_cols.index(t)
+        k = s.text_slot(t)
         st, raw = s.parsed, s.sample_text[:, k]
         mom = st.moments
         stats = (np.array([mom.n[k], mom.mean[k], mom.m2[k], mom.m3[k], mom.m4[k]]),

@@ -35,8 +35,11 @@ histories logged before still recognise their datasets.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import os
+import queue
+import threading
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 
@@ -76,6 +79,9 @@ LEVEL_CAP = 4096
 PATTERN_CAP = 4096
 DISTINCT_K = 4096
 SEED = 20021
+# Widest table fingerprinted: the per-column state of the scan (level counts and distinct
+# sketches, up to ~100 KB a column) and the row sample grow with the column count.
+MAX_COLUMNS = 20_000
 SEQUENCE, ROW_SET = "sequence", "set"  # how an Accumulator hashes the table
 # Four keys for the row-set hash: 4 x 64 bits, so a SHA-256 digest is not wasted.
 _LANES = mix64(np.arange(1, 5, dtype=np.uint64) * np.uint64(0x9E3779B97F4A7C15))
@@ -149,9 +155,17 @@ def source_of(data: pd.DataFrame | str | os.PathLike, batch_rows: int = BATCH_RO
             schema, n_rows, batches = open_parquet(data, batch_rows)
             return Source(schema, n_rows, batches)
         data = read_table(data)
+    check_width(len(data.columns))  # before converting (copying) every column
     table, mixed = frame_to_arrow(data)
     return Source(table.schema, table.num_rows,
                   lambda: iter(table.to_batches(max_chunksize=batch_rows)), mixed)
+
+
+def check_width(n_columns: int) -> None:
+    """Refuse a table of more than ``MAX_COLUMNS`` columns, before anything is allocated."""
+    if n_columns > MAX_COLUMNS:
+        raise BadInputError(f"the table has {n_columns:,} columns; at most {MAX_COLUMNS:,} "
+                            "can be fingerprinted (select or aggregate columns first)")
 
 
 def kind_of(t: pa.DataType) -> str:
@@ -319,10 +333,22 @@ class Scan:
             return float(counter.size), True
         return self.distinct[self._slot(col)].estimate()
 
+    def number_slot(self, col: int) -> int:
+        """Position of table column ``col`` in ``number_cols`` (O(1), for wide tables)."""
+        return self._slots[0][col]
+
+    def text_slot(self, col: int) -> int:
+        """Position of table column ``col`` in ``text_cols``."""
+        return self._slots[1][col]
+
+    @functools.cached_property
+    def _slots(self) -> tuple[dict[int, int], dict[int, int]]:
+        return ({c: j for j, c in enumerate(self.number_cols)},
+                {c: j for j, c in enumerate(self.text_cols)})
+
     def _slot(self, col: int) -> int:
-        if col in self.number_cols:
-            return self.number_cols.index(col)
-        return len(self.number_cols) + self.text_cols.index(col)
+        number, text = self._slots
+        return number[col] if col in number else len(number) + text[col]
 
 
 @dataclass
@@ -341,7 +367,9 @@ class Layout:
 
     @classmethod
     def of(cls, schema: pa.Schema, target: str) -> Layout:
-        """Raises :class:`BadInputError` for duplicate names or a missing target."""
+        """Raises :class:`BadInputError` for duplicate names, a missing target or more
+        than ``MAX_COLUMNS`` columns."""
+        check_width(len(schema.names))
         names = list(schema.names)
         if len(set(names)) != len(names):
             raise BadInputError("the table has duplicate column names")
@@ -549,6 +577,47 @@ def _merge_numbers(a: NumberStats, b: NumberStats) -> None:
     a.moments.merge(m.n, m.mean, m.m2, m.m3, m.m4)
 
 
+def prefetched(batches: Iterator[pa.RecordBatch]) -> Iterator[pa.RecordBatch]:
+    """The same batches, the next one read in a background thread meanwhile.
+
+    Decoding Parquet (pyarrow) and summarising a batch (numpy) both release the GIL, so
+    on two or more cores reading overlaps the work; one batch ahead at most, so memory
+    grows by one batch. An error while reading is raised here, in order.
+    """
+    ahead: queue.Queue = queue.Queue(maxsize=1)
+    stop = threading.Event()
+    done = object()
+
+    def put(item) -> bool:
+        while not stop.is_set():
+            try:
+                ahead.put(item, timeout=0.1)
+                return True
+            except queue.Full:
+                continue
+        return False  # the consumer went away
+
+    def read() -> None:
+        try:
+            for b in batches:
+                if not put(b):
+                    return
+            put(done)
+        except BaseException as exc:  # handed to the consumer, raised there
+            put(exc)
+
+    worker = threading.Thread(target=read, daemon=True, name="warmstart-read-ahead")
+    worker.start()
+    try:
+        while (item := ahead.get()) is not done:
+            if isinstance(item, BaseException):
+                raise item
+            yield item
+    finally:
+        stop.set()
+        worker.join()
+
+
 def scan(source: Source, target: str, sample_cap: int = SAMPLE_CAP) -> Scan:
     """Read every batch of ``source`` once and summarise it (see :class:`Scan`).
 
@@ -559,7 +628,7 @@ def scan(source: Source, target: str, sample_cap: int = SAMPLE_CAP) -> Scan:
     if source.directory is None:
         acc = Accumulator(layout, sample_cap)
         offset = 0
-        for batch in source.batches():
+        for batch in prefetched(source.batches()):
             acc.add(batch, offset)
             offset += batch.num_rows
         return acc.finish(source.mixed)

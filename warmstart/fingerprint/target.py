@@ -1,7 +1,6 @@
 """The target: class balance (classification) or distribution (regression)."""
 
 import numpy as np
-from scipy import stats
 
 from warmstart.fingerprint.catalogue import (
     BOTH,
@@ -40,6 +39,8 @@ def classes(p: DatasetProfile) -> float:
               "Entropy of the class distribution divided by its maximum",
               "H(y) / ln(classes), H in nats (Shannon 1948)", "[0, 1]", CLASSIFICATION)
 def class_entropy_normalised(p: DatasetProfile) -> float:
+    from scipy import stats  # scipy.stats loads in seconds: only when computed
+
     return float(stats.entropy(class_counts(p)) / np.log(p.classes))
 
 

@@ -12,6 +12,7 @@ of the fields it replaced.
 
 from __future__ import annotations
 
+import json
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property
@@ -22,11 +23,12 @@ import pandas as pd
 
 from warmstart.families.base import Family
 from warmstart.fingerprint import Fingerprint
+from warmstart.prediction_cache import fit_identity
 from warmstart.similarity import Neighbour
 from warmstart.spaces import SearchSpace
 from warmstart.strategies.base import SAME_DATASET_DISTANCE, Suggestion, canonical_key
 from warmstart.strategies.trial_index import TrialIndex
-from warmstart.surrogate import StudySurrogate, SurrogateCache, fit_surrogate
+from warmstart.surrogate import StudySurrogate, SurrogateCache, fit_rows, fit_surrogate
 from warmstart.values import finite_or_none
 
 
@@ -111,8 +113,23 @@ class SuggestContext:
         return None
 
     # -- surrogates ----------------------------------------------------------------------
-    def _fit(self, study_id: str, kind: str) -> StudySurrogate:
+    def _fit_positions(self, study_id: str) -> np.ndarray:
+        """Rows of :attr:`trials` one study's surrogate is fitted on (a bounded sample)."""
         pos = self.trials.study_positions(study_id)
+        return pos[fit_rows(pos.size, self.seed)]
+
+    @cached_property
+    def _space_id(self) -> str:
+        return json.dumps(self.full_space.to_dict(), sort_keys=True, default=str)
+
+    def _identity(self, study_id: str) -> tuple[int, str, str]:
+        """What a study's predictions depend on beyond its id (see prediction_cache)."""
+        pos = self._fit_positions(study_id)
+        return self.seed, self._space_id, fit_identity(
+            self.trials.column("trial_index")[pos], self.trials.column("normalised")[pos])
+
+    def _fit(self, study_id: str, kind: str) -> StudySurrogate:
+        pos = self._fit_positions(study_id)
         return fit_surrogate(self.trials.configs_at(pos), self.trials.column("normalised")[pos],
                              self.full_space, kind, self.seed)
 
@@ -121,7 +138,8 @@ class SuggestContext:
         """Predicted normalised scores of ``configs`` (canonical ``keys``) on one study,
         shape (len(configs),), from its surrogate fitted on its ``ok`` trials (cached)."""
         return self.surrogates.predict(study_id, kind, configs, keys,
-                                       lambda: self._fit(study_id, kind))
+                                       lambda: self._fit(study_id, kind),
+                                       lambda: self._identity(study_id))
 
     # -- building suggestions --------------------------------------------------------------
     @cached_property
