@@ -36,8 +36,19 @@ def handle_errors(func):
 
 def kb_option(func):
     return click.option(
-        "--kb", "kb_path", type=click.Path(path_type=Path), default=None,
-        help=f"History directory [default: ${ENV_VAR}, else ./knowledge_base].")(func)
+        # str, not Path: a Path would fold file:///x into file:/x
+        "--kb", "kb_path", type=click.Path(path_type=str), default=None,
+        help=f"History directory or file:// URI [default: ${ENV_VAR}, else "
+             "./knowledge_base].")(func)
+
+
+def cluster_option(func):
+    """``--cluster``: where data is scanned (and ``tune``'s fits run): a dask scheduler."""
+    return click.option(
+        "--cluster", default=None, metavar="ADDRESS|local:N",
+        help="Run on a dask cluster: a scheduler address (tcp://host:8786) or local:N "
+             "(N local worker processes); DATA must be readable by the workers. "
+             "Needs warmstart[cluster].")(func)
 
 
 def json_option(func):
@@ -75,6 +86,6 @@ def dataset_input(data, target, fingerprint_file) -> Path | None:
     return data if fingerprint_file is None else None
 
 
-def open_history(kb_path: Path | None) -> KnowledgeBase:
+def open_history(kb_path: str | Path | None) -> KnowledgeBase:
     """The history at --kb, else $WARMSTART_KB, else ./knowledge_base."""
     return KnowledgeBase(resolve_path(kb_path))

@@ -9,6 +9,7 @@ import click
 import warmstart
 from cli.common import (
     TASK,
+    cluster_option,
     data_options,
     dataset_input,
     family_option,
@@ -31,15 +32,16 @@ from warmstart.strategies import DEFAULT_STRATEGY, STRATEGIES
 @click.option("--task", type=TASK, default=None, help="Override the inferred task.")
 @click.option("--list", "list_catalogue", is_flag=True,
               help="Print the meta-feature catalogue instead (no DATA needed).")
+@cluster_option
 @json_option
 @handle_errors
-def fingerprint_cmd(data, target, task, list_catalogue, as_json) -> None:
+def fingerprint_cmd(data, target, task, list_catalogue, cluster, as_json) -> None:
     """Compute a dataset's meta-feature fingerprint (warnings about dirty columns on stderr)."""
     if list_catalogue:
         _echo_catalogue(as_json)
         return
     need_data(data, target, None)
-    fp = warmstart.fingerprint(data, target=target, task=task)
+    fp = warmstart.fingerprint(data, target=target, task=task, cluster=cluster)
     if as_json:
         emit_json(fp.to_dict())
     else:

@@ -10,6 +10,7 @@ import click
 from cli.common import (
     EXIT_INTERRUPTED,
     TASK,
+    cluster_option,
     family_option,
     handle_errors,
     json_option,
@@ -51,12 +52,13 @@ from warmstart.tune import GP_EI, SEARCHES, TuneResult, tune
 @click.option("--progress/--no-progress", default=None,
               help="Progress bar on stderr [default: when stderr is a terminal, or "
                    f"{PROGRESS_ENV}=1].")
+@cluster_option
 @kb_option
 @json_option
 @handle_errors
 def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, search,
-             warm_start, strategy, space_file, no_log, out, name, task, progress, kb_path,
-             as_json) -> None:
+             warm_start, strategy, space_file, no_log, out, name, task, progress, cluster,
+             kb_path, as_json) -> None:
     """Tune FAMILY on DATA: warm-start suggestions first, then Bayesian optimisation."""
     path = resolve_path(kb_path)
     bar = TrialProgressBar(budget, stream=sys.stderr, enabled=progress)
@@ -65,7 +67,8 @@ def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, s
         result = tune(data, target=target, family=family, budget=budget, metric=metric, cv=cv,
                       seed=seed, jobs=jobs, time_limit=time_limit, search=search, kb=path,
                       log=not no_log, task=task, out=out, name=name, warm_start=warm_start,
-                      space=space_file, strategy=strategy, progress=bar)
+                      space=space_file, strategy=strategy, progress=bar,
+                      cluster=cluster)
     finally:
         bar.close()
     if as_json:
