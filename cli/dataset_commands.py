@@ -87,16 +87,18 @@ def _echo_catalogue(as_json: bool) -> None:
 @click.option("--higher-is-better", "direction", flag_value=MAXIMIZE,
               help="The metric is a score (needed for names scikit-learn does not know).")
 @click.option("--name", default=None, help="Label for the study [default: file name].")
+@cluster_option
 @kb_option
 @json_option
 @handle_errors
 def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, direction,
-            name, kb_path, as_json) -> None:
+            name, cluster, kb_path, as_json) -> None:
     """Log a finished study (its trials) into the team history."""
     data = dataset_input(data, target, fingerprint_file)
     study = open_history(kb_path).log(
         data, target=target, family=family, trials=trials_file, metric=metric,
-        direction=direction, name=name, fingerprint_of=fingerprint_file, task=task)
+        direction=direction, name=name, fingerprint_of=fingerprint_file, task=task,
+        cluster=cluster)
     if as_json:
         emit_json(study.to_dict())
         return
@@ -111,14 +113,15 @@ def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, d
 @data_options
 @click.option("-k", default=5, show_default=True, type=click.IntRange(min=1),
               help="How many neighbours.")
+@cluster_option
 @kb_option
 @json_option
 @handle_errors
-def similar_cmd(data, target, task, fingerprint_file, k, kb_path, as_json) -> None:
+def similar_cmd(data, target, task, fingerprint_file, k, cluster, kb_path, as_json) -> None:
     """Show the past datasets most similar to DATA, and why."""
     data = dataset_input(data, target, fingerprint_file)
     found = open_history(kb_path).similar(data, target=target, k=k, task=task,
-                                          fingerprint_of=fingerprint_file)
+                                          fingerprint_of=fingerprint_file, cluster=cluster)
     if as_json:
         emit_json([n.to_dict() for n in found])
         return
@@ -150,17 +153,18 @@ def similar_cmd(data, target, task, fingerprint_file, k, kb_path, as_json) -> No
               help="Drop suggestions expected to take longer to fit on DATA.")
 @click.option("--seed", type=int, default=0, show_default=True,
               help="Seed for strategies that draw at random.")
+@cluster_option
 @kb_option
 @json_option
 @handle_errors
 def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strategy,
-                space_file, max_fit_seconds, seed, kb_path, as_json) -> None:
+                space_file, max_fit_seconds, seed, cluster, kb_path, as_json) -> None:
     """Suggest starting configurations for FAMILY on DATA."""
     data = dataset_input(data, target, fingerprint_file)
     found = open_history(kb_path).suggest(
         data, target=target, family=family, k=k, task=task, metric=metric,
         strategy=strategy, space=space_file, max_fit_seconds=max_fit_seconds, seed=seed,
-        fingerprint_of=fingerprint_file)
+        fingerprint_of=fingerprint_file, cluster=cluster)
     if as_json:
         emit_json([s.to_dict() for s in found])
         return

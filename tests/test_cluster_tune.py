@@ -121,7 +121,7 @@ def test_fingerprint_command_gives_the_same_json_on_local_2(tmp_path):
     spread = run("fingerprint", data, "--target", TARGET, "--json", "--cluster", "local:2")
     assert alone.exit_code == 0 and spread.exit_code == 0, spread.output + spread.stderr
     assert json.loads(spread.stdout) == json.loads(alone.stdout)
-    assert json.loads(alone.stdout)["values"]["rows"] == 3000
+    assert json.loads(alone.stdout)["meta_features"]["rows"] == 3000
 
 
 def test_tune_command_on_local_2_logs_a_study(kb, iris_csv):
@@ -148,3 +148,21 @@ def test_tune_of_a_directory_records_the_dataset_log_records(kb, tmp_path):
     again = kb.log(data, target=TARGET, family="linear",
                    trials=[{**res.trials[0].config, "score": 0.5}])
     assert again.dataset_id == res.logged.dataset_id and not again.dataset_is_new
+
+
+def test_log_similar_suggest_fingerprint_a_directory_on_the_cluster(client, kb, tmp_path):
+    # the cluster's fingerprint is the one-process one, so each command answers the same
+    data = write_partitioned(tmp_path / "sales", n=2000, seed=8)
+    trials = [{"n_neighbors": k, "score": s} for k, s in ((3, 0.61), (9, 0.66))]
+    spread = kb.log(data, target=TARGET, family="knn", trials=trials, cluster=client)
+    again = kb.log(data, target=TARGET, family="knn", trials=trials)
+    assert again.dataset_id == spread.dataset_id and not again.dataset_is_new
+    near = [n.to_dict() for n in kb.similar(data, target=TARGET, cluster=client)]
+    assert near == [n.to_dict() for n in kb.similar(data, target=TARGET)]
+    kw = dict(target=TARGET, family="knn", k=2)
+    assert [s.to_dict() for s in kb.suggest(data, cluster=client, **kw)] == \
+        [s.to_dict() for s in kb.suggest(data, **kw)]
+    r = run("similar", data, "--target", TARGET, "--kb", kb.path, "--json",
+            "--cluster", "local:2")
+    assert r.exit_code == 0, r.output + r.stderr
+    assert json.loads(r.stdout) == json.loads(json.dumps(near))

@@ -309,8 +309,11 @@ def _load(data: pd.DataFrame | str | os.PathLike, target: str, task: str | None,
                             f"{', '.join(map(str, df.columns[:20]))}")
     # A path is fingerprinted as a path, so the study's dataset id is the one 'log DATA'
     # and 'suggest DATA' compute (a directory's hash differs from its rows' in one frame).
-    source = df if isinstance(data, pd.DataFrame) else data
-    fp = fingerprint(source, target=target, task=task, cluster=client)
+    # A DataFrame is already here: it is fingerprinted here, not shipped to the cluster.
+    if isinstance(data, pd.DataFrame):
+        fp = fingerprint(df, target=target, task=task)
+    else:
+        fp = fingerprint(data, target=target, task=task, cluster=client)
     metric_name = metric or DEFAULT_METRIC[fp.task]
     if metric_name not in get_scorer_names():
         raise BadInputError(f"metric {metric_name!r} is not a scikit-learn scorer name "
