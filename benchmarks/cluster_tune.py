@@ -2,7 +2,7 @@
 
 Usage::
 
-    nice -n 10 python benchmarks/cluster_tune.py [--rows 20000] [--budget 6] [--cv 5]
+    nice -n 10 python benchmarks/cluster_tune.py [--rows 5000] [--budget 4] [--cv 5]
         [--family random_forest] [--workers 2]
 
 Builds a seeded synthetic classification table (``sklearn.datasets.make_classification``,
@@ -47,8 +47,8 @@ def timed(label: str, **kw) -> tuple[float, list]:
 
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--rows", type=int, default=20_000)
-    ap.add_argument("--budget", type=int, default=6)
+    ap.add_argument("--rows", type=int, default=5_000)
+    ap.add_argument("--budget", type=int, default=4)
     ap.add_argument("--cv", type=int, default=5)
     ap.add_argument("--family", default="random_forest")
     ap.add_argument("--workers", type=int, default=2)

@@ -5,6 +5,7 @@ exit 2, before any network access."""
 from __future__ import annotations
 
 import json
+import os
 import subprocess
 import sys
 from pathlib import Path
@@ -67,29 +68,49 @@ def test_a_history_made_and_filled_through_file_uris_is_the_local_one(tmp_path, 
     assert len(KnowledgeBase(local).tables()["trials"]) == 2
 
 
-@pytest.mark.parametrize("uri, lacks", [("s3://team-bucket/kb", "no atomic rename"),
-                                        ("gs://team-bucket/kb", "no atomic rename"),
-                                        ("abfs://box@acct/kb", "hierarchical namespace"),
-                                        ("hdfs://namenode:8020/kb", "mount it")])
-def test_file_systems_without_the_guarantee_are_refused_offline(uri, lacks, iris_csv,
-                                                                tmp_path):
+# a real process whose every socket call aborts it: refusal needs no network
+OFFLINE = """
+import contextlib, io, json, sys
+def hook(event, args):
+    if event.startswith("socket."):
+        print("network: " + event, file=sys.stderr); sys.stderr.flush()
+        import os; os._exit(99)
+sys.addaudithook(hook)
+from cli.main import main
+out = []
+for args in json.loads(sys.argv[1]):
+    err = io.StringIO()
+    with contextlib.redirect_stderr(err), contextlib.redirect_stdout(io.StringIO()) as o:
+        try:
+            main(args)
+        except SystemExit as exc:
+            out.append([exc.code, err.getvalue(), o.getvalue()])
+print(json.dumps(out))
+"""
+
+REFUSED = [("s3://team-bucket/kb", "no atomic rename"),
+           ("gs://team-bucket/kb", "no atomic rename"),
+           ("abfs://box@acct/kb", "hierarchical namespace"),
+           ("hdfs://namenode:8020/kb", "mount it")]
+
+
+def test_file_systems_without_the_guarantee_are_refused_offline(iris_csv, tmp_path):
     trials = tmp_path / "trials.csv"
     trials.write_text("n_neighbors,score\n3,0.9\n")
-    # a real process whose every socket call aborts it: refusal needs no network
-    code = ("import sys\n"
-            "def hook(event, args):\n"
-            "    if event.startswith('socket.'):\n"
-            "        print('network: ' + event, file=sys.stderr); sys.stderr.flush()\n"
-            "        import os; os._exit(99)\n"
-            "sys.addaudithook(hook)\n"
-            "from cli.main import main\n"
-            "main(sys.argv[1:])\n")
-    for args in (["kb", "info", "--kb", uri],
-                 ["log", str(iris_csv), "-t", "target", "-f", "knn", "--trials",
-                  str(trials), "--kb", uri]):
-        p = subprocess.run([sys.executable, "-c", code, *args], cwd=REPO,
-                           capture_output=True, text=True, timeout=120)
-        assert p.returncode == 2, p.stderr
-        assert p.stderr.count("\n") == 1 and p.stderr.startswith(f"error: history at {uri}")
-        assert lacks in p.stderr and p.stdout == ""
-    assert not (REPO / "team-bucket").exists()
+    calls = []
+    for uri, _ in REFUSED:
+        calls += [["kb", "info", "--kb", uri], ["kb", "init", uri],
+                  ["log", str(iris_csv), "-t", "target", "-f", "knn", "--trials",
+                   str(trials), "--kb", uri]]
+    p = subprocess.run([sys.executable, "-c", OFFLINE, json.dumps(calls)], cwd=tmp_path,
+                       capture_output=True, text=True, timeout=300,
+                       env={**os.environ, "PYTHONPATH": str(REPO)})
+    assert p.returncode == 0, p.stderr  # 99 had it touched a socket
+    results = json.loads(p.stdout)
+    assert len(results) == len(calls)
+    for call, (code, err, out) in zip(calls, results):
+        uri, lacks = next(r for r in REFUSED if r[0] in call)
+        assert code == 2, (call, err)
+        assert err.count("\n") == 1 and err.startswith(f"error: history at {uri}"), err
+        assert lacks in err and out == ""
+    assert set(tmp_path.iterdir()) == {trials, iris_csv}  # nothing written, no directory
