@@ -7,8 +7,6 @@ from __future__ import annotations
 
 import json
 import os
-import signal
-import time
 
 import pytest
 from click.testing import CliRunner
@@ -17,7 +15,7 @@ from sklearn.datasets import load_iris
 pytest.importorskip("distributed")
 
 from cli.main import main  # noqa: E402
-from tests.test_cluster import _in_thread  # noqa: E402
+from tests.test_cluster import _in_thread, _kill_a_busy_worker, worker_env  # noqa: E402
 from tests.test_partitioned import TARGET, write_partitioned  # noqa: E402
 from warmstart import cluster as wcluster  # noqa: E402
 from warmstart.trials import FAILED, OK  # noqa: E402
@@ -40,10 +38,8 @@ def iris():
 
 @pytest.fixture
 def slow_fits(client):
-    client.run(lambda: os.environ.__setitem__(wcluster.FIT_SLEEP_ENV, str(FIT_SLEEP)))
-    yield
-    client.wait_for_workers(2, timeout=30)
-    client.run(lambda: os.environ.pop(wcluster.FIT_SLEEP_ENV, None))
+    with worker_env(client, wcluster.FIT_SLEEP_ENV, str(FIT_SLEEP)):
+        yield
 
 
 def _summary(result):
@@ -64,17 +60,7 @@ def test_cluster_trials_equal_the_one_process_trials(client, iris, family, searc
 
 
 def _kill_a_fitting_worker(client) -> int:
-    pids = client.run(os.getpid)
-    deadline = time.monotonic() + 30
-    while time.monotonic() < deadline:
-        busy = [w for w, keys in client.processing().items()
-                if any(str(k).startswith("warmstart-fold-") for k in keys)]
-        if busy:
-            time.sleep(FIT_SLEEP / 3)  # inside the fold's sleep
-            os.kill(pids[busy[0]], signal.SIGKILL)
-            return pids[busy[0]]
-        time.sleep(0.02)
-    raise AssertionError("no fold task started")
+    return _kill_a_busy_worker(client, "warmstart-fold-", FIT_SLEEP)
 
 
 def test_a_worker_killed_mid_trial_is_retried(client, iris, slow_fits):
