@@ -65,9 +65,16 @@ def frame_from_wire(d: dict[str, Any]) -> pd.DataFrame:
 
 
 def trials_to_wire(trials: TrialsInput) -> list[dict[str, Any]]:
-    """A trials table (frame, file or list of dicts) as JSON objects; blanks as null."""
+    """A trials table (frame, file or list of dicts) as JSON objects.
+
+    A blank cell (NaN, as CSV gives it) is left out of its object, so the server reads it
+    as blank too (``None`` where the estimator's default is None, else unset); an
+    explicit None (as JSON lines can hold) is sent as null and stays None.
+    """
     df = load_trials(trials)
-    return jsonable(df.astype(object).where(df.notna(), None).to_dict(orient="records"))
+    return jsonable([{k: v for k, v in row.items()
+                      if not (isinstance(v, float) and math.isnan(v))}
+                     for row in df.astype(object).to_dict(orient="records")])
 
 
 def stored_fingerprint(d: dict[str, Any]) -> Fingerprint:
