@@ -161,8 +161,19 @@ def kb_option(func):
     from warmstart.history import ENV_VAR
 
     return click.option(
-        "--kb", "kb_path", type=click.Path(path_type=Path), default=None,
-        help=f"History directory [default: ${ENV_VAR}, else ./knowledge_base].")(func)
+        # str, not Path: a Path would fold file:///x into file:/x
+        "--kb", "kb_path", type=click.Path(path_type=str), default=None,
+        help=f"History directory or file:// URI [default: ${ENV_VAR}, else "
+             "./knowledge_base].")(func)
+
+
+def cluster_option(func):
+    """``--cluster``: where data is scanned (and ``tune``'s fits run): a dask scheduler."""
+    return click.option(
+        "--cluster", default=None, metavar="ADDRESS|local:N",
+        help="Run on a dask cluster: a scheduler address (tcp://host:8786) or local:N "
+             "(N local worker processes); DATA must be readable by the workers. "
+             "Needs warmstart[cluster].")(func)
 
 
 def json_option(func):
@@ -213,14 +224,14 @@ def dataset_input(data, target, fingerprint_file) -> Path | None:
     return data if fingerprint_file is None else None
 
 
-def query_fingerprint(data, target, task, fingerprint_file) -> Fingerprint:
+def query_fingerprint(data, target, task, fingerprint_file, cluster=None) -> Fingerprint:
     """The fingerprint a command compares: read from --fingerprint, else of DATA."""
     from warmstart.fingerprint import Fingerprint, fingerprint
 
     need_data(data, target, fingerprint_file)
     if fingerprint_file is not None:
         return Fingerprint.from_json_file(fingerprint_file)
-    return fingerprint(data, target=target, task=task)
+    return fingerprint(data, target=target, task=task, cluster=cluster)
 
 
 def task_line(fp: Fingerprint, task: str | None, fingerprint_file) -> str:
@@ -230,7 +241,7 @@ def task_line(fp: Fingerprint, task: str | None, fingerprint_file) -> str:
     return f"task: {fp.task} ({how})"
 
 
-def open_history(kb_path: Path | None) -> KnowledgeBase:
+def open_history(kb_path: str | Path | None) -> KnowledgeBase:
     """The history at --kb, else $WARMSTART_KB, else ./knowledge_base."""
     from warmstart.history import KnowledgeBase, resolve_path
 

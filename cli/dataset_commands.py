@@ -10,6 +10,7 @@ import warmstart
 from cli.common import (
     SPACE_HELP,
     TASK,
+    cluster_option,
     data_options,
     direction_options,
     family_option,
@@ -35,15 +36,16 @@ from warmstart.strategies import DEFAULT_STRATEGY, STRATEGIES
 @click.option("--task", type=TASK, default=None, help="Override the inferred task.")
 @click.option("--list", "list_catalogue", is_flag=True,
               help="Print the meta-feature catalogue instead (no DATA needed).")
+@cluster_option
 @json_option
 @handle_errors
-def fingerprint_cmd(data, target, task, list_catalogue, as_json) -> None:
+def fingerprint_cmd(data, target, task, list_catalogue, cluster, as_json) -> None:
     """Compute a dataset's meta-feature fingerprint (warnings about dirty columns on stderr)."""
     if list_catalogue:
         _echo_catalogue(as_json)
         return
     need_data(data, target, None)
-    fp = warmstart.fingerprint(data, target=target, task=task)
+    fp = warmstart.fingerprint(data, target=target, task=task, cluster=cluster)
     if as_json:
         emit_json(fp.to_dict())
     else:
@@ -89,14 +91,15 @@ def _echo_catalogue(as_json: bool) -> None:
               help="scikit-learn scorer name [default: balanced_accuracy or r2].")
 @direction_options
 @click.option("--name", default=None, help="Label for the study [default: file name].")
+@cluster_option
 @kb_option
 @json_option
 @handle_errors
 def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, direction,
-            name, kb_path, as_json) -> None:
+            name, cluster, kb_path, as_json) -> None:
     """Log a finished study (its trials) into the team history."""
     kb = open_history(kb_path)
-    fp = query_fingerprint(data, target, task, fingerprint_file)
+    fp = query_fingerprint(data, target, task, fingerprint_file, cluster)
     study = kb.log(
         target=target, family=family, trials=trials_file, metric=metric,
         direction=direction, fingerprint_of=fp, task=task,
@@ -118,13 +121,14 @@ def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, d
 @data_options
 @click.option("-k", default=5, show_default=True, type=click.IntRange(min=1),
               help="How many neighbours.")
+@cluster_option
 @kb_option
 @json_option
 @handle_errors
-def similar_cmd(data, target, task, fingerprint_file, k, kb_path, as_json) -> None:
+def similar_cmd(data, target, task, fingerprint_file, k, cluster, kb_path, as_json) -> None:
     """Show the past datasets most similar to DATA, and why."""
     kb = open_history(kb_path)
-    fp = query_fingerprint(data, target, task, fingerprint_file)
+    fp = query_fingerprint(data, target, task, fingerprint_file, cluster)
     found = kb.similar(target=target, k=k, task=task, fingerprint_of=fp)
     if not found:
         raise NothingToSuggestError(
@@ -163,14 +167,15 @@ def similar_cmd(data, target, task, fingerprint_file, k, kb_path, as_json) -> No
                    "no limit].")
 @click.option("--seed", type=int, default=0, show_default=True,
               help="Seed for strategies that draw at random.")
+@cluster_option
 @kb_option
 @json_option
 @handle_errors
 def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strategy,
-                space_file, max_fit_seconds, seed, kb_path, as_json) -> None:
+                space_file, max_fit_seconds, seed, cluster, kb_path, as_json) -> None:
     """Suggest starting configurations for FAMILY on DATA."""
     kb = open_history(kb_path)
-    fp = query_fingerprint(data, target, task, fingerprint_file)
+    fp = query_fingerprint(data, target, task, fingerprint_file, cluster)
     try:
         found = kb.suggest(
             target=target, family=family, k=k, task=task, metric=metric,

@@ -19,11 +19,11 @@ def kb_group() -> None:
 
 
 @kb_group.command("init")
-@click.argument("path", type=click.Path(path_type=Path))
+@click.argument("path", type=click.Path(path_type=str))  # a path or a file:// URI
 @json_option
 @handle_errors
 def kb_init_cmd(path, as_json) -> None:
-    """Create an empty history at PATH."""
+    """Create an empty history at PATH (a path or a file:// URI)."""
     kb = KnowledgeBase.init(path)
     if as_json:
         emit_json({"path": str(kb.path), "format_version": kb.format_version})

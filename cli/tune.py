@@ -11,6 +11,7 @@ from cli.common import (
     EXIT_INTERRUPTED,
     SPACE_HELP,
     TASK,
+    cluster_option,
     family_option,
     handle_errors,
     json_option,
@@ -57,12 +58,13 @@ from warmstart.tune import GP_EI, SEARCHES, TuneResult, tune
 @click.option("--progress/--no-progress", default=None,
               help="Progress bar on stderr [default: when stderr is a terminal, or "
                    f"{PROGRESS_ENV}=1].")
+@cluster_option
 @kb_option
 @json_option
 @handle_errors
 def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, search,
              warm_start, strategy, space_file, max_fit_seconds, no_log, out, name, task,
-             progress, kb_path, as_json) -> None:
+             progress, cluster, kb_path, as_json) -> None:
     """Tune FAMILY on DATA: warm-start suggestions first, then Bayesian optimisation."""
     path = resolve_path(kb_path)
     bar = TrialProgressBar(budget, stream=sys.stderr, enabled=progress)
@@ -72,7 +74,7 @@ def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, s
                       seed=seed, jobs=jobs, time_limit=time_limit, search=search, kb=path,
                       log=not no_log, task=task, out=out, name=name, warm_start=warm_start,
                       space=space_file, strategy=strategy, progress=bar,
-                      max_fit_seconds=max_fit_seconds)
+                      max_fit_seconds=max_fit_seconds, cluster=cluster)
     finally:
         bar.close()
     if as_json:

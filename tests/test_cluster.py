@@ -9,6 +9,7 @@ import pickle
 import signal
 import threading
 import time
+from contextlib import contextmanager
 from pathlib import Path
 
 import pandas as pd
@@ -45,13 +46,23 @@ def data_dir(tmp_path_factory) -> Path:
     return write_partitioned(tmp_path_factory.mktemp("cluster") / "sales", n=6000, seed=4)
 
 
+@contextmanager
+def worker_env(client, name: str, value: str):
+    """Set an environment variable in every worker; unset it (in the 2 workers then
+    running) afterwards."""
+    client.run(lambda: os.environ.__setitem__(name, value))
+    try:
+        yield
+    finally:
+        client.wait_for_workers(2, timeout=30)
+        client.run(lambda: os.environ.pop(name, None))
+
+
 @pytest.fixture
 def slow_tasks(client):
     """Part tasks sleep first, so a worker can be killed while it runs one."""
-    client.run(lambda: os.environ.__setitem__(wcluster.SLEEP_ENV, str(SLEEP)))
-    yield
-    client.wait_for_workers(2, timeout=30)
-    client.run(lambda: os.environ.pop(wcluster.SLEEP_ENV, None))
+    with worker_env(client, wcluster.SLEEP_ENV, str(SLEEP)):
+        yield
 
 
 @pytest.mark.parametrize("target, cap", [(TARGET, 500), ("spend", 10_000)])
@@ -101,19 +112,20 @@ def test_bad_cluster_arguments_fail_before_anything_runs(data_dir, monkeypatch):
     assert "\n" not in str(err.value)
 
 
-def _kill_a_busy_worker(client) -> int:
-    """SIGKILL the process of a worker that is running a part task right now."""
+def _kill_a_busy_worker(client, prefix: str = "warmstart-part-", sleep: float = SLEEP
+                        ) -> int:
+    """SIGKILL the process of a worker that is running a task (key ``prefix...``) now."""
     pids = client.run(os.getpid)
     deadline = time.monotonic() + 30
     while time.monotonic() < deadline:
         busy = [w for w, keys in client.processing().items()
-                if any(str(k).startswith("warmstart-part-") for k in keys)]
+                if any(str(k).startswith(prefix) for k in keys)]
         if busy:
-            time.sleep(SLEEP / 3)  # well inside the task's sleep
+            time.sleep(sleep / 3)  # well inside the task's sleep
             os.kill(pids[busy[0]], signal.SIGKILL)
             return pids[busy[0]]
         time.sleep(0.02)
-    raise AssertionError("no part task started")
+    raise AssertionError(f"no {prefix} task started")
 
 
 def _in_thread(func):

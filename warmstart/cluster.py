@@ -14,9 +14,17 @@ threshold, and every part task keeps only rows at or below it: the sample rows t
 travel are the sample's own, not ``sample_cap`` per part. Both rounds are submitted at
 once; dask passes the threshold between workers.
 
+Cross-validation fits of :func:`warmstart.tune.tune` run here too
+(:class:`ClusterFolds`): the study's rows are scattered to every worker once, and each
+fold of a trial is one task that fits a fresh clone of the pipeline on its training rows
+and scores it on its test rows, which is what ``sklearn.model_selection.cross_validate``
+does, so the scores are the same as in one process. Trials still run one after another in
+the client, so their order and the search's proposals depend on the seed only.
+
 A worker lost mid-task is handled by dask: its tasks are run again on another worker, up
 to ``distributed.scheduler.allowed-failures`` times, after which the scan fails with a
-one-line :class:`ClusterError`. A fingerprint is only ever built from every part (the
+one-line :class:`ClusterError` (a tuning trial whose fold fails so is recorded as failed,
+with that line as its error). A fingerprint is only ever built from every part (the
 merged row count is checked against the files' footers).
 
 The workers read the files themselves, so the path must be the same on every worker
@@ -61,6 +69,8 @@ PRIORITY_ROWS = 1 << 22
 TRIM_KEY = "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_"
 # Test-only: seconds each part task sleeps before reading, to kill a worker mid-task.
 SLEEP_ENV = "WARMSTART_TEST_TASK_SLEEP"
+# Test-only: seconds each fold fit task sleeps first, to kill a worker mid-trial.
+FIT_SLEEP_ENV = "WARMSTART_TEST_FIT_SLEEP"
 
 
 class ClusterError(WarmstartError):
@@ -131,7 +141,7 @@ def scan_on_cluster(data: str | os.PathLike, target: str, cluster: Any, *,
         with connect(cluster) as client:
             fut = client.submit(_scan_file, path, target, sample_cap, batch_rows,
                                 key=_key("file"), pure=False)
-            return _result(fut, path)
+            return _result(fut, f"reading {path}")
     directory = open_directory(path)  # footers only, on the client
     layout = Layout.of(directory.schema, target)
     with connect(cluster) as client:
@@ -141,7 +151,7 @@ def scan_on_cluster(data: str | os.PathLike, target: str, cluster: Any, *,
                    for i, part in enumerate(directory.parts)]
         total = None
         for part, fut in zip(directory.parts, futures):  # in part order, as scan() does
-            acc = _result(fut, f"{part.path} (row groups {list(part.row_groups)})")
+            acc = _result(fut, f"reading {part.path} (row groups {list(part.row_groups)})")
             fut.release()
             total = acc if total is None else total.merge(acc)
         return finish_directory(directory, total, layout, sample_cap)
@@ -157,8 +167,10 @@ def _sample_bound(client, n_rows: int, sample_cap: int):
     return client.submit(_bound, sample_cap, *smallest, key=_key("bound"), pure=False)
 
 
-def _result(fut, what: str):
-    """A task's result; a lost worker or a broken connection becomes one line."""
+def _result(fut, doing: str, *, task_errors: bool = True):
+    """A task's result; a lost worker or a broken connection becomes one line. With
+    ``task_errors=False`` an exception raised by the task itself is re-raised as it is
+    (a fold's fitting error reads the same as in one process)."""
     from distributed import KilledWorker
 
     try:
@@ -166,15 +178,57 @@ def _result(fut, what: str):
     except WarmstartError:
         raise
     except KilledWorker as exc:
-        raise ClusterError(f"dask workers kept dying while reading {what}; gave up after "
+        raise ClusterError(f"dask workers kept dying while {doing}; gave up after "
                            f"the allowed retries ({_line(exc)}); nothing was computed"
                            ) from None
     except (OSError, TimeoutError) as exc:
-        raise ClusterError(f"lost the dask cluster while reading {what}: {_line(exc)}"
-                           ) from None
-    except (Exception, asyncio.CancelledError) as exc:  # any other failure, e.g. MemoryError
-        raise ClusterError(f"a dask task failed while reading {what}: "
+        raise ClusterError(f"lost the dask cluster while {doing}: {_line(exc)}") from None
+    except asyncio.CancelledError as exc:
+        raise ClusterError(f"a dask task was cancelled while {doing}: {_line(exc)}") from None
+    except Exception as exc:  # any other failure, e.g. MemoryError
+        if not task_errors:
+            raise
+        raise ClusterError(f"a dask task failed while {doing}: "
                            f"{type(exc).__name__}: {_line(exc)}") from None
+
+
+class ClusterFolds:
+    """The cross-validation of a tuning study, one task per fold on a cluster.
+
+    Parameters
+    ----------
+    client : dask.distributed.Client
+        Where the fits run.
+    X : DataFrame, shape (n_rows, n_features)
+        The study's labelled rows, scattered to every worker once.
+    y : Series, shape (n_rows,)
+        Their target.
+    splitter : sklearn cross-validation splitter
+        Seeded folds; split once, here, so every trial uses the same indices.
+    """
+
+    def __init__(self, client: Any, X: pd.DataFrame, y: pd.Series, splitter: Any):
+        self.client = client
+        self.splits = [(np.asarray(tr), np.asarray(te)) for tr, te in splitter.split(X, y)]
+        self._X, self._y = client.scatter([X, y], broadcast=True, hash=False)
+
+    def cross_validate(self, estimator: Any, scoring: str) -> dict[str, np.ndarray]:
+        """Fit and score ``estimator`` on every fold, as ``cross_validate`` does.
+
+        Returns ``{"test_score": (n_folds,), "fit_time": (n_folds,) seconds}``. A fold
+        whose worker keeps dying raises :class:`ClusterError`; a fold whose fit raises
+        re-raises that exception.
+        """
+        futures = [self.client.submit(_fit_fold, estimator, self._X, self._y, train, test,
+                                      scoring, key=_key(f"fold-{i}"), pure=False)
+                   for i, (train, test) in enumerate(self.splits)]
+        try:
+            out = [_result(f, f"fitting fold {i + 1} of {len(futures)}", task_errors=False)
+                   for i, f in enumerate(futures)]
+        finally:
+            self.client.cancel(futures)  # a failed trial leaves no task behind
+        return {"test_score": np.array([score for score, _ in out]),
+                "fit_time": np.array([seconds for _, seconds in out])}
 
 
 # -- what the workers run --------------------------------------------------------------
@@ -187,6 +241,28 @@ def _scan_part_task(schema, part, layout, sample_cap, batch_rows, bound):
     if delay > 0:
         time.sleep(delay)
     return scan_part(schema, part, layout, sample_cap, batch_rows, bound)
+
+
+def _fit_fold(estimator, X: pd.DataFrame, y: pd.Series, train: np.ndarray, test: np.ndarray,
+              scoring: str) -> tuple[float, float]:
+    """One fold on a worker: (test score, fit seconds), as ``cross_validate`` fits it."""
+    import warnings
+
+    from sklearn.base import clone
+    from sklearn.metrics import get_scorer
+    from threadpoolctl import threadpool_limits
+
+    delay = float(os.environ.get(FIT_SLEEP_ENV, "0") or 0)
+    if delay > 0:
+        time.sleep(delay)
+    est = clone(estimator)
+    with threadpool_limits(1), warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # as in one process: convergence chatter
+        t0 = time.perf_counter()
+        est.fit(X.iloc[train], y.iloc[train])
+        seconds = time.perf_counter() - t0
+        score = get_scorer(scoring)(est, X.iloc[test], y.iloc[test])
+    return float(score), seconds
 
 
 def _smallest(start: int, stop: int, cap: int) -> np.ndarray:

@@ -38,6 +38,7 @@ import pyarrow.dataset as pads
 from warmstart import maintenance, suggesting
 from warmstart.errors import BadInputError
 from warmstart.families import get_family
+from warmstart.filesystems import history_location
 from warmstart.fingerprint import Fingerprint, fingerprint
 from warmstart.layout import (
     FORMAT_FILE,
@@ -69,8 +70,11 @@ META_CACHE_SIZE = 50_000
 
 
 def resolve_path(path: str | os.PathLike | None = None) -> Path:
-    """Where the history lives: ``path``, else ``$WARMSTART_KB``, else ``./knowledge_base``."""
-    return Path(path or os.environ.get(ENV_VAR) or DEFAULT_PATH)
+    """Where the history lives: ``path``, else ``$WARMSTART_KB``, else ``./knowledge_base``.
+
+    A ``file://`` URI is its local path; a URI of a file system without atomic rename
+    is refused with one line (see :func:`warmstart.filesystems.history_location`)."""
+    return history_location(path or os.environ.get(ENV_VAR) or DEFAULT_PATH)
 
 
 @dataclass(frozen=True)
@@ -95,9 +99,11 @@ class LoggedStudy:
 
 def query_fingerprint(data: pd.DataFrame | str | os.PathLike | None, target: str | None,
                       task: str | None,
-                      fingerprint_of: Fingerprint | str | os.PathLike | None) -> Fingerprint:
+                      fingerprint_of: Fingerprint | str | os.PathLike | None, *,
+                      cluster: Any = None) -> Fingerprint:
     """The fingerprint a question is about: ``fingerprint_of`` (a Fingerprint or its JSON
-    file), else that of ``data`` with its ``target``."""
+    file), else that of ``data`` with its ``target`` (scanned on ``cluster`` if given, see
+    :func:`warmstart.fingerprint.fingerprint`)."""
     if fingerprint_of is not None:
         fp = (fingerprint_of if isinstance(fingerprint_of, Fingerprint)
               else Fingerprint.from_json_file(fingerprint_of))
@@ -107,7 +113,7 @@ def query_fingerprint(data: pd.DataFrame | str | os.PathLike | None, target: str
     if data is None or target is None:
         raise BadInputError("give the dataset and its target, or a fingerprint")
     # a path goes straight to fingerprint(), which reads Parquet in batches
-    return fingerprint(data, target=target, task=task)
+    return fingerprint(data, target=target, task=task, cluster=cluster)
 
 
 def study_tables(study_id: str, dataset_id: str, label: str, family: str, fp: Fingerprint,
@@ -226,7 +232,7 @@ class KnowledgeBase:
     @classmethod
     def init(cls, path: str | os.PathLike) -> KnowledgeBase:
         """Create an empty history at ``path`` (or open the one already there)."""
-        root = Path(path)
+        root = history_location(path)
         if root.exists() and not root.is_dir():
             raise BadInputError(f"cannot create a history at {root}: it is a file")
         if (root / FORMAT_FILE).is_file():
@@ -294,7 +300,7 @@ class KnowledgeBase:
             target: str | None = None, family: str, trials: TrialsInput, metric: str | None = None,
             direction: str | None = None, name: str | None = None,
             fingerprint_of: Fingerprint | str | os.PathLike | None = None,
-            task: str | None = None, source: str = "log") -> LoggedStudy:
+            task: str | None = None, source: str = "log", cluster: Any = None) -> LoggedStudy:
         """Log one finished study.
 
         Parameters
@@ -320,11 +326,13 @@ class KnowledgeBase:
             Use this fingerprint instead of computing one from ``data``.
         task : {"classification", "regression"}, optional
             Overrides the task inferred from the target.
+        cluster : str or dask.distributed.Client, optional
+            Fingerprint a path ``data`` on this dask cluster (same result).
 
         Everything is validated before anything is written; on any error nothing is.
         """
         fam = get_family(family)
-        fp = query_fingerprint(data, target, task, fingerprint_of)
+        fp = query_fingerprint(data, target, task, fingerprint_of, cluster=cluster)
         metric_obj = resolve_metric(metric or DEFAULT_METRIC[fp.task], direction)
         checked = check_trials(trials, fam, fp.task, metric_obj)
         if not re.fullmatch(r"[0-9a-f]{64}", fp.dataset_hash):
@@ -374,15 +382,16 @@ class KnowledgeBase:
     # -- questions ------------------------------------------------------------------
     def similar(self, data: pd.DataFrame | str | os.PathLike | None = None, *,
                 target: str | None = None, k: int = 5, task: str | None = None,
-                fingerprint_of: Fingerprint | str | os.PathLike | None = None
-                ) -> list[Neighbour]:
+                fingerprint_of: Fingerprint | str | os.PathLike | None = None,
+                cluster: Any = None) -> list[Neighbour]:
         """The ``k`` past datasets (same task) nearest to this one, with explanations.
 
-        See :mod:`warmstart.similarity` for the scaling and the distance.
+        See :mod:`warmstart.similarity` for the scaling and the distance. ``cluster``
+        fingerprints a path ``data`` on a dask cluster (the same fingerprint).
         """
         if k < 1:
             raise BadInputError("k must be at least 1")
-        query = query_fingerprint(data, target, task, fingerprint_of)
+        query = query_fingerprint(data, target, task, fingerprint_of, cluster=cluster)
         datasets = self.tables()["datasets"]
         same_task = datasets[datasets["task"] == query.task]
         return nearest(query, self.fingerprints(same_task),
@@ -393,8 +402,8 @@ class KnowledgeBase:
                 task: str | None = None, metric: str | None = None,
                 strategy: str | None = None, space: SearchSpace | None = None,
                 max_fit_seconds: float | None = None, seed: int = 0,
-                fingerprint_of: Fingerprint | str | os.PathLike | None = None
-                ) -> list[Suggestion]:
+                fingerprint_of: Fingerprint | str | os.PathLike | None = None,
+                cluster: Any = None) -> list[Suggestion]:
         """A ranked list of starting configurations for ``family`` on this dataset.
 
         Parameters
@@ -413,6 +422,8 @@ class KnowledgeBase:
             bounds; configurations with a categorical value outside it are dropped).
         max_fit_seconds : float, optional
             Drop suggestions whose expected fit time exceeds this.
+        cluster : str or dask.distributed.Client, optional
+            Fingerprint a path ``data`` on this dask cluster (the same fingerprint).
 
         Raises :class:`NothingToSuggestError` when the history has no study of the
         family for this task. See :mod:`warmstart.suggesting` for the set-up.
@@ -421,7 +432,7 @@ class KnowledgeBase:
             raise BadInputError("k must be at least 1")
         fam = get_family(family)
         strat = get_strategy(strategy or DEFAULT_STRATEGY)
-        query = query_fingerprint(data, target, task, fingerprint_of)
+        query = query_fingerprint(data, target, task, fingerprint_of, cluster=cluster)
         return suggesting.suggest(self, query, fam, strat, k=k, metric=metric, space=space,
                                   max_fit_seconds=max_fit_seconds, seed=seed)
 

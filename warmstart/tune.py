@@ -24,6 +24,7 @@ what the history's ``fit_seconds`` stands for. ``cv_seconds`` is the trial's wal
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import time
@@ -160,7 +161,8 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
          name: str | None = None, warm_start: int | None = None,
          space: SearchSpace | str | os.PathLike | list | None = None,
          defaults_first: bool = True, strategy: str | None = None,
-         progress: Callable[[TuneTrial], None] | None = None) -> TuneResult:
+         progress: Callable[[TuneTrial], None] | None = None,
+         cluster: Any = None) -> TuneResult:
     """Run a warm-started tuning study of ``family`` on ``data`` and log it.
 
     Parameters
@@ -221,6 +223,12 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
     progress : callable, optional
         Called with each finished :class:`TuneTrial`, in running order (the command
         line draws a progress bar with it).
+    cluster : str or dask.distributed.Client, optional
+        Run the cross-validation fits on a dask cluster (a scheduler address,
+        ``"local:N"`` or a Client; see :func:`warmstart.cluster.connect`), one task per
+        fold; ``jobs`` is then unused. Trials still run in order, so the trials and their
+        scores are the same as without a cluster. A fold whose worker keeps dying makes
+        a failed trial (its error says so). A path DATA is fingerprinted on the cluster.
 
     Returns
     -------
@@ -237,16 +245,18 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         raise BadInputError(f"max_fit_seconds must be a number >= 0, not {max_fit_seconds!r}")
     if out is not None:  # before any trial: a study must not end in "cannot write"
         check_writable(out, "the best configuration (out)")
-    df, fp, scoring = _load(data, target, task, metric)
-    space = fam.space(fp.task) if space is None else user_space(space, fam, fp.task)
-    notes: list[str] = list(fp.warnings)  # e.g. the columns dropped from the model
-    folds = _folds(df, target, fam, fp.task, scoring, cv, seed, jobs, notes)
-    queue, queue_origin = _warm_queue(kb, fp, fam.name, space, budget, warm_start, scoring,
-                                      seed, strategy, defaults_first, notes, max_fit_seconds)
-    result = TuneResult(fam.name, fp.task, scoring, str(target), len(folds.y), cv, seed,
-                        search, budget, notes=notes)
-    proposer = _Proposer(space, search, queue, queue_origin, seed)
-    _run_trials(result, proposer, folds, time_limit, progress)
+    with _connect(cluster) as client:
+        df, fp, scoring = _load(data, target, task, metric, client)
+        space = fam.space(fp.task) if space is None else user_space(space, fam, fp.task)
+        notes: list[str] = list(fp.warnings)  # e.g. the columns dropped from the model
+        folds = _folds(df, target, fam, fp.task, scoring, cv, seed, jobs, notes, client)
+        queue, queue_origin = _warm_queue(kb, fp, fam.name, space, budget, warm_start,
+                                          scoring, seed, strategy, defaults_first, notes,
+                                          max_fit_seconds)
+        result = TuneResult(fam.name, fp.task, scoring, str(target), len(folds.y), cv, seed,
+                            search, budget, notes=notes)
+        proposer = _Proposer(space, search, queue, queue_origin, seed)
+        _run_trials(result, proposer, folds, time_limit, progress)
     if log and kb is not None and result.trials:
         label = name or (Path(data).stem if isinstance(data, (str, os.PathLike)) else None)
         result.logged = _log_study(kb, result, df, fp, label)
@@ -293,8 +303,17 @@ def _check_int(what: str, value: Any, low: int) -> None:
         raise BadInputError(f"{what} must be an integer >= {low}, not {value!r}")
 
 
+def _connect(cluster: Any):
+    """A dask client for ``cluster`` (see :func:`warmstart.cluster.connect`), or None."""
+    if cluster is None:
+        return contextlib.nullcontext()
+    from warmstart.cluster import connect
+
+    return connect(cluster)
+
+
 def _load(data: pd.DataFrame | str | os.PathLike, target: str, task: str | None,
-          metric: str | None) -> tuple[pd.DataFrame, Fingerprint, str]:
+          metric: str | None, client: Any = None) -> tuple[pd.DataFrame, Fingerprint, str]:
     """The table, its fingerprint (which validates the table and the target) and the
     scorer name the trials are scored with."""
     df = load_frame(data)
@@ -303,7 +322,13 @@ def _load(data: pd.DataFrame | str | os.PathLike, target: str, task: str | None,
                             f"{', '.join(map(str, df.columns[:20]))}")
     from sklearn.metrics import get_scorer_names
 
-    fp = fingerprint(df, target=target, task=task)
+    # A path is fingerprinted as a path, so the study's dataset id is the one 'log DATA'
+    # and 'suggest DATA' compute (a directory's hash differs from its rows' in one frame).
+    # A DataFrame is already here: it is fingerprinted here, not shipped to the cluster.
+    if isinstance(data, pd.DataFrame):
+        fp = fingerprint(df, target=target, task=task)
+    else:
+        fp = fingerprint(data, target=target, task=task, cluster=client)
     metric_name = metric or DEFAULT_METRIC[fp.task]
     if metric_name not in get_scorer_names():
         raise BadInputError(f"metric {metric_name!r} is not a scikit-learn scorer name "
@@ -324,6 +349,8 @@ class _Folds:
     scoring: str
     seed: int
     jobs: int
+    # The fits' dispatcher on a cluster (warmstart.cluster.ClusterFolds), else None.
+    remote: Any = None
 
     @property
     def train_rows(self) -> float:
@@ -333,7 +360,7 @@ class _Folds:
 
 
 def _folds(df: pd.DataFrame, target: str, fam: Family, task: str, scoring: str, cv: int,
-           seed: int, jobs: int, notes: list[str]) -> _Folds:
+           seed: int, jobs: int, notes: list[str], client: Any = None) -> _Folds:
     """Labelled rows and seeded, shuffled folds: stratified for classification."""
     from sklearn.model_selection import KFold, StratifiedKFold
 
@@ -354,7 +381,12 @@ def _folds(df: pd.DataFrame, target: str, fam: Family, task: str, scoring: str, 
         if len(y) < cv:
             raise BadInputError(f"{len(y)} labelled rows cannot make {cv} folds")
         splitter = KFold(n_splits=cv, shuffle=True, random_state=seed)
-    return _Folds(fam, task, X, y, splitter, scoring, seed, jobs)
+    remote = None
+    if client is not None:
+        from warmstart.cluster import ClusterFolds
+
+        remote = ClusterFolds(client, X, y, splitter)
+    return _Folds(fam, task, X, y, splitter, scoring, seed, jobs, remote)
 
 
 def _warm_note(found: list) -> str:
@@ -453,18 +485,12 @@ def _run_trials(result: TuneResult, proposer: _Proposer, folds: _Folds,
 
 def _evaluate(folds: _Folds, config: dict[str, Any], index: int, origin: str) -> TuneTrial:
     """Cross-validate one configuration; an exception makes a failed trial."""
-    from sklearn.model_selection import cross_validate
-
     from warmstart.pipelines import make_pipeline
 
     t0 = time.monotonic()
     try:
         pipe = make_pipeline(folds.family, folds.task, config, folds.X, seed=folds.seed)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")  # convergence chatter would break the table
-            res = cross_validate(pipe, folds.X, folds.y, cv=folds.splitter,
-                                 scoring=folds.scoring, n_jobs=folds.jobs,
-                                 error_score="raise")
+        res = _cross_validate(folds, pipe)
         scores = [float(s) for s in res["test_score"]]
         if not all(np.isfinite(scores)):
             raise ValueError("the scorer returned a non-finite score")
@@ -478,6 +504,19 @@ def _evaluate(folds: _Folds, config: dict[str, Any], index: int, origin: str) ->
         error = f"{type(exc).__name__}: {text[0] if text else ''}".strip()
         return TuneTrial(index, config, origin, FAILED, None, [], None,
                          time.monotonic() - t0, error[:500])
+
+
+def _cross_validate(folds: _Folds, pipe: Any) -> dict[str, Any]:
+    """The fit dispatch: ``test_score`` and ``fit_time`` per fold, in one process
+    (``jobs`` folds at a time) or one task per fold on the cluster."""
+    if folds.remote is not None:
+        return folds.remote.cross_validate(pipe, folds.scoring)
+    from sklearn.model_selection import cross_validate
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # convergence chatter would break the table
+        return cross_validate(pipe, folds.X, folds.y, cv=folds.splitter,
+                              scoring=folds.scoring, n_jobs=folds.jobs, error_score="raise")
 
 
 # -- logging ------------------------------------------------------------------------------
