@@ -9,18 +9,7 @@ from typing import Any
 
 import click
 
-
-def to_jsonable(obj: Any) -> Any:
-    """Replace NaN/inf by None, recursively, so the JSON is strict."""
-    if isinstance(obj, float):
-        return obj if math.isfinite(obj) else None
-    if isinstance(obj, dict):
-        return {str(k): to_jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [to_jsonable(v) for v in obj]
-    if hasattr(obj, "item") and callable(obj.item):  # numpy scalar
-        return to_jsonable(obj.item())
-    return obj
+from warmstart.values import to_jsonable
 
 
 def emit_json(obj: Any) -> None:

@@ -5,6 +5,7 @@ warnings instead (exit 0).
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import shutil
@@ -185,8 +186,25 @@ def test_malformed_input_is_refused_and_nothing_written(tmp_path, template, buil
     assert dir_digest(w.kb) == before
 
 
-def test_at_least_thirty_malformed_inputs():
-    assert len(CASES) >= 30
+def test_at_least_thirty_distinct_malformed_inputs(tmp_path, template):
+    # Each case is a different input, not another name for one already listed: its
+    # arguments, with files replaced by their bytes and directories by their place,
+    # together with the state of its history (reference: common practice).
+    inputs = set()
+    for i, (_name, build, _expected) in enumerate(CASES):
+        w = Work(tmp_path / f"w{i}", template)
+        args = build(w)
+
+        def content(arg: str, w=w) -> str:
+            path = Path(arg)
+            if not path.is_relative_to(w.root):
+                return arg
+            if path.is_file():
+                return "file " + hashlib.sha256(path.read_bytes()).hexdigest()
+            return ("dir " if path.is_dir() else "absent ") + str(path.relative_to(w.root))
+
+        inputs.add((tuple(map(content, args)), tuple(sorted(dir_digest(w.kb).items()))))
+    assert len(inputs) == len(CASES) >= 30
 
 
 def test_read_only_history_is_refused(tmp_path, template, monkeypatch):

@@ -20,7 +20,8 @@ from cli.main import main
 from tests.conftest import dir_digest
 from tests.test_history_concurrency import ROOT, WRITER, assert_consistent
 from warmstart import fingerprint
-from warmstart.history import SCHEMAS, KnowledgeBase
+from warmstart.history import KnowledgeBase
+from warmstart.layout import SCHEMAS
 from warmstart.storage import batch_name, write_atomic
 
 FIXTURE = Path(__file__).parent / "fixtures" / "history_format0"

@@ -20,7 +20,7 @@ from warmstart.errors import BadInputError
 from warmstart.families import get_family
 from warmstart.history import KnowledgeBase
 from warmstart.strategies import STRATEGIES, HedgedPortfolio, normalise_scores
-from warmstart.strategies.anchored import AnchoredPortfolio, anchored_trials, median_anchored
+from warmstart.strategies.anchored import AnchoredPortfolio, anchored_trials
 from warmstart.strategies.portfolio import dataset_weights, greedy_order
 from warmstart.surrogate import fit_surrogate
 
@@ -74,6 +74,12 @@ def test_rank_normalisation_matches_scipy_rankdata():
     s = np.array([0.2, 0.5, 0.5, 0.9, -3.0])
     # reference: scipy.stats.rankdata (average ranks for ties)
     assert np.allclose(normalise_scores(s, "maximize", "rank"), (rankdata(s) - 1) / 4)
+
+
+def median_anchored(s: np.ndarray, regret_cap: float = 1.0) -> np.ndarray:
+    """Anchored scores of one study's oriented scores ``s``."""
+    one_study = pd.DataFrame({"study_id": "a", "normalised": np.asarray(s, dtype=float)})
+    return anchored_trials(one_study, regret_cap)["normalised"].to_numpy()
 
 
 def test_median_anchored_scores_are_one_minus_capped_regret():
@@ -170,10 +176,19 @@ def test_portfolio_marks_predicted_scores_and_lists_support(small_history):
                      strategy="portfolio")
     # every study tried different random configurations, so most cells are predicted
     assert any(s.predicted for s in out)
+    t = kb.tables()
+    trials = t["trials"].merge(t["studies"][["study_id", "dataset_id"]], on="study_id")
+    # reference: the logged trials themselves - a source's score is observed exactly
+    # when the configuration was run on that dataset
+    ran = {(d, json.dumps(SPACE.clip(json.loads(c)), sort_keys=True))
+           for d, c in zip(trials["dataset_id"], trials["config"])}
     for s in out:
         weights = [e["weight"] for e in s.support]
         assert math.isclose(sum(weights), 1.0)
-        assert {e["predicted"] for e in s.support} <= {True, False}
+        key = json.dumps(s.config, sort_keys=True)
+        assert [e["predicted"] for e in s.support] == [
+            (e["dataset_id"], key) not in ran for e in s.support]
+        assert s.predicted == any(e["predicted"] for e in s.support)
         assert 0.0 <= s.expected_normalised <= 1.0
         assert math.isclose(s.expected_normalised,
                             sum(e["weight"] * e["normalised"] for e in s.support))

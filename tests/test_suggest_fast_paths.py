@@ -15,7 +15,8 @@ from warmstart.families import get_family
 from warmstart.fingerprint import Fingerprint
 from warmstart.similarity import Neighbour
 from warmstart.spaces import config_key
-from warmstart.strategies import STRATEGIES, SuggestContext, prepare_trials
+from warmstart.strategies import STRATEGIES, SuggestContext, TrialIndex, prepare_trials
+from warmstart.surrogate import fit_surrogate
 
 FAMILY = get_family("knn")
 SPACE = FAMILY.space("classification")
@@ -68,7 +69,8 @@ def _context(trials: pd.DataFrame, studies: pd.DataFrame, exact: bool) -> Sugges
                      0.5, 1, [], []) for d in (2, 0, 1, 3, 4, 5)]
     rows = {f"d{d}": 50.0 * (d + 1) for d in range(6)}
     return SuggestContext(query=query, family=FAMILY, space=SPACE, neighbours=nbs,
-                          studies=studies, trials=trials, dataset_rows=rows, seed=1)
+                          studies=studies, trials=TrialIndex(trials, SPACE), dataset_rows=rows,
+                          seed=1)
 
 
 @pytest.mark.parametrize("exact", [False, True])
@@ -82,7 +84,36 @@ def test_configs_kept_as_json_text_give_the_same_suggestions(name, exact):
     ctx = _context(text, studies, exact)
     got = [s.to_dict() for s in STRATEGIES[name].propose(ctx, 8)]
     assert got == want and (name in ("random", "defaults") or len(got) > 0)
-    # reading ctx.trials parses every row, as json.loads does (reference: Python json)
-    assert list(ctx.trials["config"]) == list(parsed["config"])
-    assert ctx.dataset_trials("d1").equals(_context(parsed, studies, exact)
-                                           .dataset_trials("d1"))
+    # reading every trial parses every row, as json.loads does (reference: Python json)
+    assert list(ctx.trials.frame["config"]) == list(parsed["config"])
+    other = _context(parsed, studies, exact)
+    best_first = ctx.trials.rows_at(ctx.dataset_positions("d1"))
+    assert best_first.equals(other.trials.rows_at(other.dataset_positions("d1")))
+    # reference: pandas sort_values over the dataset's trials (best first, then trial order)
+    want = parsed[parsed["study_id"] == "s1"].sort_values(
+        ["normalised", "trial_index"], ascending=[False, True], kind="stable")
+    assert best_first.equals(want)
+
+
+def test_surrogate_cache_fits_once_and_a_rescored_view_keeps_parsed_rows():
+    studies, raw = _history(seed=5)
+    ctx = _context(prepare_trials(raw, studies, parse_configs=False), studies, False)
+    pos = ctx.trials.study_positions("s0")
+    configs, keys = ctx.trials.configs_at(pos), list(ctx.trials.keys_at(pos))
+    fits = []
+
+    def fit():
+        fits.append(1)
+        return fit_surrogate(configs, ctx.trials.column("normalised")[pos], SPACE)
+
+    first = ctx.surrogates.predict("s0", "forest", configs, keys, fit)
+    again = ctx.surrogates.predict("s0", "forest", configs[:3], keys[:3], fit)
+    assert len(fits) == 1 and np.array_equal(again, first[:3])
+    # reference: the surrogate's own predictions, uncached
+    np.testing.assert_array_equal(first, fit().predict(configs))
+    assert ctx.surrogates.section("other") is ctx.surrogates.section("other")
+    view = ctx.trials.rescored(1.0 - ctx.trials.column("normalised"))
+    assert view.configs_at(pos)[0] is configs[0]  # parsed once, shared
+    assert view.rows_at(view.ranked_positions(["s0"]))["trial_index"].tolist() == \
+        ctx.trials.rows_at(pos).sort_values(["normalised", "trial_index"], kind="stable")[
+            "trial_index"].tolist()

@@ -11,12 +11,11 @@ The public API mirrors the command line one to one::
     kb.info()
 """
 
-__version__ = "0.1.0"
-
 from warmstart.errors import BadInputError, NothingToSuggestError, WarmstartError  # noqa: E402
 from warmstart.families import families  # noqa: E402
 from warmstart.fingerprint import Fingerprint, catalogue, fingerprint  # noqa: E402
 from warmstart.history import KnowledgeBase  # noqa: E402
+from warmstart.version import __version__  # noqa: E402
 
 __all__ = ["BadInputError", "Fingerprint", "KnowledgeBase", "NothingToSuggestError",
            "WarmstartError", "__version__", "catalogue", "families", "fingerprint"]

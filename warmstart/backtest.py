@@ -28,30 +28,30 @@ seeds and their regret averaged per dataset.
 
 from __future__ import annotations
 
-import json
 import math
-from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from functools import cached_property
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from warmstart.errors import BadInputError
+from warmstart.errors import BadInputError, NothingToSuggestError
 from warmstart.families import get_family
+from warmstart.families.base import Family
 from warmstart.fingerprint import Fingerprint
-from warmstart.metrics import DEFAULT_METRIC, MINIMIZE
-from warmstart.similarity import nearest
+from warmstart.metrics import MINIMIZE
 from warmstart.spaces import SearchSpace
 from warmstart.strategies import (
     STRATEGIES,
     Strategy,
-    SuggestContext,
     canonical_key,
     get_strategy,
     prepare_trials,
 )
-from warmstart.surrogate import fit_surrogate
+from warmstart.suggesting import choose_metric, suggestion_context
+from warmstart.surrogate import SurrogateCache, fit_surrogate
 
 DEFAULT_KS = (1, 3, 5, 10)
 LOO_MAX_GROUPS = 200
@@ -169,7 +169,7 @@ def backtest_tables(tables: dict[str, pd.DataFrame], fingerprints: dict[str, Fin
                     candidates: dict[str, list[dict]] | None = None,
                     history_trials: dict[str, pd.DataFrame] | None = None,
                     normalisation: str = "minmax",
-                    surrogate_cache: dict | None = None,
+                    surrogate_cache: SurrogateCache | None = None,
                     progress: Callable[[int, int], None] | None = None) -> BacktestResult:
     """The backtest on in-memory tables (what :func:`backtest` runs).
 
@@ -189,77 +189,125 @@ def backtest_tables(tables: dict[str, pd.DataFrame], fingerprints: dict[str, Fin
     normalisation : {"minmax", "rank"}
         How history scores are normalised per study (see
         :func:`warmstart.strategies.normalise_scores`).
-    surrogate_cache : dict, optional
+    surrogate_cache : SurrogateCache, optional
         Reused across calls with the same history and normalisation.
     """
     fam = get_family(family)
+    run = _Run(fam, _check_ks(ks), _check_strategies(strategies), fingerprints,
+               dict(zip(tables["datasets"]["dataset_id"], tables["datasets"]["name"])),
+               seed, _check_repeats(random_repeats),
+               SurrogateCache() if surrogate_cache is None else surrogate_cache)
+    plans = _plan(tables, fam, metric, space, candidates, history_trials, normalisation)
+    if not plans:
+        raise BadInputError(f"backtesting {fam.name!r} needs at least two datasets with a "
+                            "study of it (same task and metric) in the history")
+    jobs = []
+    for plan in plans:
+        excluded = _exclusions(plan.dataset_ids, groups or {}, seed)
+        jobs += [(plan, h, excluded[h]) for h in plan.dataset_ids
+                 if holdout is None or h in holdout]
+    per: list[dict[str, Any]] = []
+    lookups = {s.name: {"lookups": 0, "predicted": 0} for s in run.strategies}
+    skipped: list[str] = []
+    for n_done, (plan, h, excluded) in enumerate(jobs, 1):
+        outcome = _one_holdout(run, plan, h, excluded)
+        name = run.names.get(h, h)
+        if outcome is None:
+            skipped.append(name)
+        for strategy, curve, n_lookups, n_pred in outcome or ():
+            lookups[strategy]["lookups"] += n_lookups
+            lookups[strategy]["predicted"] += n_pred
+            per.extend({"dataset_id": h, "name": name, "task": plan.task,
+                        "strategy": strategy, "k": k, "regret": r}
+                       for k, r in zip(run.ks, curve))
+        if progress is not None:
+            progress(n_done, len(jobs))
+    cols = ["dataset_id", "name", "task", "strategy", "k", "regret"]
+    return BacktestResult(fam.name, run.ks, [s.name for s in run.strategies],
+                          {plan.task: plan.metric for plan in plans},
+                          pd.DataFrame(per, columns=cols), lookups, skipped)
+
+
+@dataclass(frozen=True)
+class _Run:
+    """What every held-out dataset of one backtest shares."""
+
+    family: Family
+    ks: tuple[int, ...]
+    strategies: list[Strategy]
+    fingerprints: Mapping[str, Fingerprint]
+    names: Mapping[str, str]
+    seed: int
+    repeats: int
+    surrogates: SurrogateCache
+
+
+@dataclass(frozen=True)
+class _TaskPlan:
+    """One task's studies (of its metric), held-out truth and history trials."""
+
+    task: str
+    metric: str
+    studies: pd.DataFrame
+    truth: pd.DataFrame  # every ok trial, for the held-out dataset's own scores
+    history: pd.DataFrame  # what strategies see, with canonical keys
+    space: SearchSpace | None
+    candidates: list[dict] | None
+
+    @property
+    def dataset_ids(self) -> list[str]:
+        return sorted(self.studies["dataset_id"].unique())
+
+
+def _check_ks(ks: Sequence[int]) -> tuple[int, ...]:
     ks = tuple(sorted({int(k) for k in ks}))
     if not ks or ks[0] < 1:
         raise BadInputError("every k must be a positive integer")
+    return ks
+
+
+def _check_repeats(random_repeats: int) -> int:
     if random_repeats < 1:
         raise BadInputError("random_repeats must be at least 1")
+    return random_repeats
+
+
+def _check_strategies(strategies: Sequence[str | Strategy] | None) -> list[Strategy]:
     strats = [get_strategy(s) for s in (strategies or list(STRATEGIES))]
     names = [s.name for s in strats]
     if len(set(names)) != len(names):
         raise BadInputError("each strategy may be named only once")
-    studies_all = tables["studies"][tables["studies"]["family"] == fam.name]
-    datasets = tables["datasets"]
-    names_of = dict(zip(datasets["dataset_id"], datasets["name"]))
-    rows_of = {r.dataset_id: float(json.loads(r.meta_features).get("rows") or np.nan)
-               for r in datasets.itertuples(index=False)}
-    per: list[dict[str, Any]] = []
-    lookups = {s.name: {"lookups": 0, "predicted": 0} for s in strats}
-    skipped: list[str] = []
-    metrics: dict[str, str] = {}
-    plan = []
-    for task in sorted(studies_all["task"].unique()):
-        st = studies_all[studies_all["task"] == task]
-        m = metric or (DEFAULT_METRIC[task] if DEFAULT_METRIC[task] in set(st["metric"])
-                       else str(st["metric"].value_counts().index[0]))
+    return strats
+
+
+def _plan(tables: dict[str, pd.DataFrame], fam: Family, metric: str | None, space,
+          candidates: dict[str, list[dict]] | None,
+          history_trials: dict[str, pd.DataFrame] | None,
+          normalisation: str) -> list[_TaskPlan]:
+    """A plan per task with at least two datasets studied under the task's metric."""
+    studies = tables["studies"][tables["studies"]["family"] == fam.name]
+    plans = []
+    for task in sorted(studies["task"].unique()):
+        st = studies[studies["task"] == task]
+        try:
+            m = choose_metric(st, task, metric)
+        except NothingToSuggestError:  # the metric asked for: none in this task
+            continue
         st = st[st["metric"] == m].reset_index(drop=True)
         if st["dataset_id"].nunique() < 2:
             continue
-        metrics[task] = m
-        plan.append((task, st))
-    if not plan:
-        raise BadInputError(f"backtesting {fam.name!r} needs at least two datasets with a "
-                            "study of it (same task and metric) in the history")
-    jobs = []
-    for task, st in plan:
-        truth = prepare_trials(tables["trials"], st)
-        hist = prepare_trials(history_trials[task] if history_trials and task in
-                              history_trials else tables["trials"], st, normalisation)
+        hist = prepare_trials((history_trials or {}).get(task, tables["trials"]), st,
+                              normalisation)
         hist["key"] = [canonical_key(fam.space(task), c) for c in hist["config"]]
-        ids = sorted(st["dataset_id"].unique())
-        group = {i: (groups or {}).get(i, i) for i in ids}
-        excluded = _exclusions(ids, group, seed)
-        for h in ids:
-            if holdout is None or h in holdout:
-                jobs.append((task, st, truth, hist, h, excluded[h]))
-    surrogate_cache = {} if surrogate_cache is None else surrogate_cache
-    for n_done, (task, st, truth, hist, h, excl) in enumerate(jobs, 1):
-        task_space = space.get(task) if isinstance(space, dict) else space
-        outcome = _one_holdout(fam, task, st, truth, hist, h, excl, fingerprints, names_of,
-                               rows_of, strats, ks, task_space, seed, random_repeats,
-                               (candidates or {}).get(task), surrogate_cache)
-        if outcome is None:
-            skipped.append(names_of.get(h, h))
-        else:
-            for name, curve, n_lookups, n_pred in outcome:
-                lookups[name]["lookups"] += n_lookups
-                lookups[name]["predicted"] += n_pred
-                for k, r in zip(ks, curve):
-                    per.append({"dataset_id": h, "name": names_of.get(h, h), "task": task,
-                                "strategy": name, "k": k, "regret": r})
-        if progress is not None:
-            progress(n_done, len(jobs))
-    cols = ["dataset_id", "name", "task", "strategy", "k", "regret"]
-    return BacktestResult(fam.name, ks, names, metrics, pd.DataFrame(per, columns=cols),
-                          lookups, skipped)
+        plans.append(_TaskPlan(task, m, st, prepare_trials(tables["trials"], st), hist,
+                               space.get(task) if isinstance(space, dict) else space,
+                               (candidates or {}).get(task)))
+    return plans
 
 
-def _exclusions(ids: list[str], group: dict[str, str], seed: int) -> dict[str, set[str]]:
+def _exclusions(ids: list[str], groups: Mapping[str, str], seed: int) -> dict[str, set[str]]:
     """Held-out id -> ids left out of its history (its group, or its fold of groups)."""
+    group = {i: groups.get(i, i) for i in ids}
     labels = sorted(set(group.values()))
     if len(labels) <= LOO_MAX_GROUPS:
         fold = {g: g for g in labels}
@@ -272,57 +320,60 @@ def _exclusions(ids: list[str], group: dict[str, str], seed: int) -> dict[str, s
     return {i: members[fold[group[i]]] for i in ids}
 
 
-def _one_holdout(fam, task, st, truth, hist, h, excl, fingerprints, names_of, rows_of,
-                 strats, ks, space, seed, repeats, candidates, cache):
-    direction = st.loc[st["dataset_id"] == h, "direction"].iloc[0]
-    sign = -1.0 if direction == MINIMIZE else 1.0
-    full = fam.space(task)
-    own = truth[truth["study_id"].isin(st.loc[st["dataset_id"] == h, "study_id"])]
-    oriented = sign * own["score"].to_numpy(dtype=float)
-    best, median = float(oriented.max()), float(np.median(oriented))
-    if not best > median:
+class _HeldOut:
+    """The held-out dataset's own trials: oriented scores by canonical key, and a
+    surrogate (fitted on first need) for configurations it never ran."""
+
+    def __init__(self, plan: _TaskPlan, full: SearchSpace, dataset_id: str, seed: int):
+        mine = plan.studies[plan.studies["dataset_id"] == dataset_id]
+        sign = -1.0 if mine["direction"].iloc[0] == MINIMIZE else 1.0
+        self.own = plan.truth[plan.truth["study_id"].isin(mine["study_id"])]
+        self.oriented = sign * self.own["score"].to_numpy(dtype=float)
+        self.best = float(self.oriented.max())
+        self.median = float(np.median(self.oriented))
+        self.full, self.seed = full, seed
+        keys = [canonical_key(full, c) for c in self.own["config"]]
+        self.observed = pd.Series(self.oriented).groupby(pd.Series(keys)).mean().to_dict()
+        self.lookups = self.predicted = 0
+
+    @cached_property
+    def _surrogate(self):
+        lo = float(self.oriented.min())
+        return fit_surrogate(list(self.own["config"]), (self.oriented - lo) / (self.best - lo),
+                             self.full, "forest", self.seed)
+
+    def value(self, config: dict[str, Any]) -> float:
+        """The configuration's oriented score here: run, or predicted (counted)."""
+        key = canonical_key(self.full, config)
+        self.lookups += 1
+        if key in self.observed:
+            return self.observed[key]
+        self.predicted += 1
+        lo = float(self.oriented.min())
+        return lo + float(self._surrogate.predict([config])[0]) * (self.best - lo)
+
+
+def _one_holdout(run: _Run, plan: _TaskPlan, h: str, excluded: set[str]):
+    """Per strategy: (name, regret at each k, lookups, predicted lookups); None when
+    the held-out dataset cannot rank anything (its best equals its median)."""
+    held = _HeldOut(plan, run.family.space(plan.task), h, run.seed)
+    if not held.best > held.median:
         return None
-    keys = [canonical_key(full, c) for c in own["config"]]
-    observed = pd.Series(oriented).groupby(pd.Series(keys)).mean().to_dict()
-    lo = float(oriented.min())
-    held: list = []  # the held-out study's surrogate, fitted on first need
-
-    def predicted_value(config) -> float:
-        if not held:
-            held.append(fit_surrogate(list(own["config"]), (oriented - lo) / (best - lo),
-                                      full, "forest", seed))
-        return lo + float(held[0].predict([config])[0]) * (best - lo)
-
-    hist_studies = st[~st["dataset_id"].isin(excl)].reset_index(drop=True)
-    hist_trials = hist[hist["study_id"].isin(hist_studies["study_id"])].reset_index(drop=True)
-    hist_ids = set(hist_studies["dataset_id"])
-    fps = {i: fingerprints[i] for i in hist_ids}
-    neighbours = nearest(fingerprints[h], fps, names_of, k=None)
-    ctx = SuggestContext(query=fingerprints[h], family=fam, space=space or full,
-                         neighbours=neighbours, studies=hist_studies, trials=hist_trials,
-                         dataset_rows={i: rows_of.get(i, np.nan) for i in hist_ids},
-                         seed=seed, restricted=space is not None, candidates=candidates,
-                         surrogates=cache)
-    kmax = max(ks)
+    ctx = suggestion_context(
+        run.fingerprints[h], run.family, plan.studies, plan.history, run.fingerprints,
+        run.names, metric=plan.metric, exclude=excluded, space=plan.space, seed=run.seed,
+        candidates=plan.candidates, surrogates=run.surrogates)
+    kmax = max(run.ks)
     out = []
-    for s in strats:
-        curves, n_lookups, n_pred = [], 0, 0
-        for r in range(repeats if s.stochastic else 1):
-            ctx.seed = seed + r
-            proposals = s.propose(ctx, kmax)[:kmax]
-            values = []
-            for p in proposals:
-                key = canonical_key(full, p.config)
-                n_lookups += 1
-                if key in observed:
-                    values.append(observed[key])
-                else:
-                    n_pred += 1
-                    values.append(predicted_value(p.config))
-            curves.append(_regret_curve(np.asarray(values), best, median, ks))
-        ctx.seed = seed
+    for s in run.strategies:
+        held.lookups = held.predicted = 0
+        curves = []
+        for r in range(run.repeats if s.stochastic else 1):
+            seeded = ctx if r == 0 else replace(ctx, seed=run.seed + r)
+            values = [held.value(p.config) for p in s.propose(seeded, kmax)[:kmax]]
+            curves.append(_regret_curve(np.asarray(values), held.best, held.median, run.ks))
         out.append((s.name, np.nanmean(np.array(curves), axis=0) if curves else
-                    [math.nan] * len(ks), n_lookups, n_pred))
+                    [math.nan] * len(run.ks), held.lookups, held.predicted))
     return out
 
 

@@ -1,12 +1,10 @@
 """The team history: a directory of Parquet tables of datasets, studies and trials.
 
-Layout (format version 1)::
-
-    <history>/
-      warmstart-history.json     {"format_version": 1, ...}
-      datasets/<id>.parquet      one row per dataset: its fingerprint (no rows of data)
-      studies/<id>.parquet       one row per study: family, metric, direction, label
-      trials/<id>.parquet        one row per trial: configuration (JSON), score, time
+:class:`KnowledgeBase` opens a history, reads it and logs studies into it; the other
+questions it answers are thin delegates (``suggest`` to :mod:`warmstart.suggesting`,
+``info``, ``check``, ``compact``, ``export``, ``import_`` and ``migrate`` to
+:mod:`warmstart.maintenance`). The tables' schemas and the format marker are in
+:mod:`warmstart.layout`.
 
 Each ``log`` writes its own three files, named ``<study_id>-<dataset_id>.parquet``
 (a fresh uuid4 study id), and never rewrites another's: the dataset row first, the
@@ -27,7 +25,7 @@ import json
 import os
 import re
 import uuid
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
@@ -35,14 +33,21 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import pyarrow as pa
-import pyarrow.compute as pc
 import pyarrow.dataset as pads
 
-from warmstart import __version__
-from warmstart.errors import BadInputError, NothingToSuggestError
+from warmstart import maintenance, suggesting
+from warmstart.errors import BadInputError
 from warmstart.families import get_family
 from warmstart.fingerprint import Fingerprint, fingerprint
-from warmstart.metrics import DEFAULT_METRIC, MAXIMIZE, MINIMIZE, resolve_metric
+from warmstart.layout import (
+    FORMAT_FILE,
+    FORMAT_VERSION,
+    SCHEMAS,
+    dedupe,
+    read_current_marker,
+    write_marker,
+)
+from warmstart.metrics import DEFAULT_METRIC, MAXIMIZE, MINIMIZE, Metric, resolve_metric
 from warmstart.similarity import Neighbour, nearest
 from warmstart.spaces import SearchSpace, config_key
 from warmstart.storage import (
@@ -52,83 +57,15 @@ from warmstart.storage import (
     read_dir,
     visible_files,
     write_atomic,
-    write_bytes_atomic,
 )
-from warmstart.strategies import (
-    DEFAULT_STRATEGY,
-    SuggestContext,
-    Suggestion,
-    get_strategy,
-    prepare_trials,
-    user_space,
-)
-from warmstart.trials import OK, TrialsInput, validate_trials
+from warmstart.strategies import DEFAULT_STRATEGY, Suggestion, get_strategy
+from warmstart.trials import OK, Trial, TrialsInput, validate_trials
+from warmstart.version import __version__
 
-FORMAT_FILE = "warmstart-history.json"
-FORMAT_VERSION = 1
 ENV_VAR = "WARMSTART_KB"
 DEFAULT_PATH = "knowledge_base"
-
-_TS = pa.timestamp("us", tz="UTC")
-SCHEMAS: dict[str, pa.Schema] = {
-    "datasets": pa.schema([
-        ("dataset_id", pa.string()),
-        ("name", pa.string()),
-        ("task", pa.string()),
-        ("target", pa.string()),
-        ("catalogue_version", pa.int32()),
-        ("meta_features", pa.string()),  # JSON object: name -> value (null = undefined)
-        ("warnings", pa.string()),  # JSON list of strings
-        ("created_at", _TS),
-    ]),
-    "studies": pa.schema([
-        ("study_id", pa.string()),
-        ("dataset_id", pa.string()),
-        ("family", pa.string()),
-        ("task", pa.string()),
-        ("metric", pa.string()),
-        ("direction", pa.string()),  # "maximize" or "minimize"
-        ("label", pa.string()),
-        ("n_trials", pa.int32()),
-        ("source", pa.string()),  # "log" or "tune"
-        ("tool_version", pa.string()),
-        ("created_at", _TS),
-    ]),
-    "trials": pa.schema([
-        ("study_id", pa.string()),
-        ("trial_index", pa.int32()),
-        ("config", pa.string()),  # JSON object: estimator keyword -> value
-        ("score", pa.float64()),
-        ("fit_seconds", pa.float64()),
-        ("status", pa.string()),  # "ok" or "failed"
-        ("error", pa.string()),
-    ]),
-}
 # Parsed stored fingerprints kept per KnowledgeBase instance (a few MB at this size).
 META_CACHE_SIZE = 50_000
-KEYS = {"datasets": ["dataset_id"], "studies": ["study_id"], "trials": ["study_id", "trial_index"]}
-# Among rows sharing a key, the first in this order wins, whatever file it came from.
-ORDER = {"datasets": ["dataset_id", "created_at", "name"], "studies": ["study_id", "created_at"],
-         "trials": ["study_id", "trial_index"]}
-
-
-def dedupe(table: pa.Table, name: str) -> pa.Table:
-    """Sort ``table`` (of history table ``name``) by key and keep one row per key.
-
-    The winner does not depend on which files the rows came from, so merging or
-    reordering files never changes what readers see.
-    """
-    if table.num_rows < 2:
-        return table
-    table = table.sort_by([(c, "ascending") for c in ORDER[name]])
-    keep = np.ones(table.num_rows, dtype=bool)
-    same = np.ones(table.num_rows - 1, dtype=bool)
-    for col in KEYS[name]:
-        a = table.column(col)
-        same &= pc.equal(a.slice(1), a.slice(0, table.num_rows - 1)).to_numpy(
-            zero_copy_only=False)
-    keep[1:] = ~same
-    return table if keep.all() else table.filter(pa.array(keep))
 
 
 def resolve_path(path: str | os.PathLike | None = None) -> Path:
@@ -156,6 +93,116 @@ class LoggedStudy:
         return dict(self.__dict__)
 
 
+def query_fingerprint(data: pd.DataFrame | str | os.PathLike | None, target: str | None,
+                      task: str | None,
+                      fingerprint_of: Fingerprint | str | os.PathLike | None) -> Fingerprint:
+    """The fingerprint a question is about: ``fingerprint_of`` (a Fingerprint or its JSON
+    file), else that of ``data`` with its ``target``."""
+    if fingerprint_of is not None:
+        fp = (fingerprint_of if isinstance(fingerprint_of, Fingerprint)
+              else Fingerprint.from_json_file(fingerprint_of))
+        if task is not None and task != fp.task:
+            raise BadInputError(f"the fingerprint is for {fp.task}, not {task}")
+        return fp
+    if data is None or target is None:
+        raise BadInputError("give the dataset and its target, or a fingerprint")
+    # a path goes straight to fingerprint(), which reads Parquet in batches
+    return fingerprint(data, target=target, task=task)
+
+
+def study_tables(study_id: str, dataset_id: str, label: str, family: str, fp: Fingerprint,
+                 metric: Metric, trials: list[Trial], source: str,
+                 now: datetime) -> dict[str, pa.Table]:
+    """The three one-study tables ``log`` writes: the dataset row, the trials, the study."""
+    trial_table = pa.Table.from_pylist([
+        {"study_id": study_id, "trial_index": i, "config": config_key(t.config),
+         "score": t.score, "fit_seconds": t.fit_seconds, "status": t.status,
+         "error": t.error} for i, t in enumerate(trials)
+    ], schema=SCHEMAS["trials"])
+    study_table = pa.Table.from_pylist([{
+        "study_id": study_id, "dataset_id": dataset_id, "family": family,
+        "task": fp.task, "metric": metric.name, "direction": metric.direction,
+        "label": label, "n_trials": len(trials), "source": source,
+        "tool_version": __version__, "created_at": now,
+    }], schema=SCHEMAS["studies"])
+    # The dataset row is written by every study, even when the dataset is known: a
+    # study then never depends on another study's files, and duplicates cost one
+    # small row (readers keep the earliest; compaction drops the rest).
+    dataset_table = pa.Table.from_pylist([{
+        "dataset_id": dataset_id, "name": label, "task": fp.task, "target": fp.target,
+        "catalogue_version": fp.catalogue_version,
+        "meta_features": json.dumps(fp.to_dict()["meta_features"], sort_keys=True),
+        "warnings": json.dumps(fp.warnings), "created_at": now,
+    }], schema=SCHEMAS["datasets"])
+    return {"datasets": dataset_table, "trials": trial_table, "studies": study_table}
+
+
+def visible_tables(root: Path, family: str | None = None, task: str | None = None,
+                   trial_columns: list[str] | None = None) -> dict[str, pa.Table]:
+    """What :meth:`KnowledgeBase.arrow_tables` returns, for the history at ``root``."""
+    cond = None
+    for col, value in (("family", family), ("task", task)):
+        if value is not None:
+            term = pads.field(col) == value
+            cond = term if cond is None else cond & term
+    studies = dedupe(read_dir(root / "studies", SCHEMAS["studies"], filter=cond),
+                     "studies")
+    ids = set(studies.column("study_id").to_pylist())
+
+    def committed(files: list[Path]) -> list[Path]:
+        return [f for f in files if (p := parse_log_name(f)) is None or p[0] in ids]
+
+    id_list = pa.array(sorted(ids), pa.string())
+    trials = read_dir(root / "trials", SCHEMAS["trials"], columns=trial_columns,
+                      where_in=("study_id", id_list), select=committed)
+    trials = dedupe(trials, "trials") if trial_columns is None else trials
+    ds_ids = pa.array(sorted(set(studies.column("dataset_id").to_pylist())), pa.string())
+    datasets = read_dir(root / "datasets", SCHEMAS["datasets"],
+                        filter=pads.field("dataset_id").isin(ds_ids), select=committed)
+    return {"datasets": dedupe(datasets, "datasets"), "studies": studies,
+            "trials": trials}
+
+
+def write_study(root: Path, fname: str, tables: dict[str, pa.Table]) -> None:
+    """Write one study's tables as ``fname`` in each table directory: dataset first,
+    trials next, the study row last (the study file commits)."""
+    try:
+        write_atomic(tables["datasets"], root / "datasets", fname)
+        _pause("after-dataset")
+        write_atomic(tables["trials"], root / "trials", fname)
+        _pause("after-trials")
+        write_atomic(tables["studies"], root / "studies", fname)
+    except PermissionError:
+        raise BadInputError(f"history {root} is read-only (permission denied)") from None
+
+
+def dataset_known(root: Path, dataset_id: str) -> bool:
+    """Whether a committed study already refers to ``dataset_id``.
+
+    Files written by ``log`` carry the dataset id in their name, so only the few
+    merged/imported study files need reading.
+    """
+    studies_dir = root / "studies"
+    if any(p is not None and p[1] == dataset_id
+           for p in map(parse_log_name, visible_files(studies_dir))):
+        return True
+    found = read_dir(studies_dir, SCHEMAS["studies"], columns=["dataset_id"],
+                     filter=pads.field("dataset_id") == dataset_id,
+                     select=lambda fs: [f for f in fs if parse_log_name(f) is None])
+    return found.num_rows > 0
+
+
+def check_writable(root: Path) -> None:
+    """Refuse (:class:`BadInputError`) a history whose table directories are missing or
+    read-only, before anything is written."""
+    for table in SCHEMAS:
+        d = root / table
+        if not d.is_dir():
+            raise BadInputError(f"history {root} is missing its {table}/ directory")
+        if not os.access(d, os.W_OK | os.X_OK):
+            raise BadInputError(f"history {root} is read-only ({d} is not writable)")
+
+
 class KnowledgeBase:
     """A team history on disk.
 
@@ -168,35 +215,14 @@ class KnowledgeBase:
 
     def __init__(self, path: str | os.PathLike | None = None):
         self.path = resolve_path(path)
-        marker = self.path / FORMAT_FILE
         if self.path.exists() and not self.path.is_dir():
             raise BadInputError(f"history path {self.path} is a file, not a directory")
-        if not marker.is_file():
-            raise BadInputError(
-                f"{self.path} is not a warmstart history (no {FORMAT_FILE}); "
-                f"create one with 'warmstart kb init {self.path}'"
-            )
-        try:
-            meta = json.loads(marker.read_text(encoding="utf-8"))
-            version = int(meta["format_version"])
-        except (ValueError, KeyError, TypeError):
-            raise BadInputError(f"{marker} is not a valid history marker file") from None
-        if version > FORMAT_VERSION:
-            by = meta.get("created_by") or "a newer warmstart"
-            raise BadInputError(
-                f"history {self.path} has format version {version} (written by {by}); this "
-                f"warmstart {__version__} reads format versions up to {FORMAT_VERSION}: "
-                f"upgrade to a warmstart that reads format {version}"
-            )
-        if version < FORMAT_VERSION:
-            raise BadInputError(
-                f"history {self.path} has the old format version {version}; convert it with "
-                f"'warmstart kb migrate --kb {self.path}' (the data is kept)"
-            )
-        self.format_version = version
+        meta = read_current_marker(self.path)
+        self.format_version = FORMAT_VERSION
         self.created_by = str(meta.get("created_by", ""))
+        # parsed stored fingerprints, by their JSON text (see _meta_values)
+        self._meta_cache: dict[str, dict[str, float]] = {}
 
-    # -- creation -----------------------------------------------------------------
     @classmethod
     def init(cls, path: str | os.PathLike) -> KnowledgeBase:
         """Create an empty history at ``path`` (or open the one already there)."""
@@ -211,17 +237,12 @@ class KnowledgeBase:
             root.mkdir(parents=True, exist_ok=True)
             for table in SCHEMAS:
                 (root / table).mkdir(exist_ok=True)
-            marker = {"format_version": FORMAT_VERSION, "created_by": f"warmstart {__version__}",
-                      "tables": list(SCHEMAS)}
-            write_bytes_atomic(json.dumps(marker, indent=2).encode() + b"\n", root / FORMAT_FILE)
+            write_marker(root)
         except PermissionError:
             raise BadInputError(f"cannot create a history at {root}: permission denied") from None
         return cls(root)
 
     # -- reading --------------------------------------------------------------------
-    def _raw(self, table: str) -> pa.Table:
-        return read_dir(self.path / table, SCHEMAS[table])
-
     def arrow_tables(self, family: str | None = None, task: str | None = None,
                      trial_columns: list[str] | None = None) -> dict[str, pa.Table]:
         """The visible rows of the three tables as Arrow tables, sorted and de-duplicated.
@@ -233,27 +254,7 @@ class KnowledgeBase:
         are read (Parquet filters), which keeps a question about one family fast on a
         large history.
         """
-        cond = None
-        for col, value in (("family", family), ("task", task)):
-            if value is not None:
-                term = pads.field(col) == value
-                cond = term if cond is None else cond & term
-        studies = dedupe(read_dir(self.path / "studies", SCHEMAS["studies"], filter=cond),
-                         "studies")
-        ids = set(studies.column("study_id").to_pylist())
-
-        def committed(files: list[Path]) -> list[Path]:
-            return [f for f in files if (p := parse_log_name(f)) is None or p[0] in ids]
-
-        id_list = pa.array(sorted(ids), pa.string())
-        trials = read_dir(self.path / "trials", SCHEMAS["trials"], columns=trial_columns,
-                          where_in=("study_id", id_list), select=committed)
-        trials = dedupe(trials, "trials") if trial_columns is None else trials
-        ds_ids = pa.array(sorted(set(studies.column("dataset_id").to_pylist())), pa.string())
-        datasets = read_dir(self.path / "datasets", SCHEMAS["datasets"],
-                            filter=pads.field("dataset_id").isin(ds_ids), select=committed)
-        return {"datasets": dedupe(datasets, "datasets"), "studies": studies,
-                "trials": trials}
+        return visible_tables(self.path, family, task, trial_columns)
 
     def tables(self, family: str | None = None, task: str | None = None
                ) -> dict[str, pd.DataFrame]:
@@ -265,7 +266,7 @@ class KnowledgeBase:
         return {k: v.to_pandas() for k, v in self.arrow_tables(family, task).items()}
 
     def fingerprints(self, datasets: pd.DataFrame | None = None) -> dict[str, Fingerprint]:
-        """Stored fingerprints by dataset id."""
+        """Stored fingerprints by dataset id (of ``datasets``, default every dataset)."""
         if datasets is None:
             datasets = self.tables()["datasets"]
         out = {}
@@ -280,13 +281,12 @@ class KnowledgeBase:
     def _meta_values(self, meta_json: str) -> dict[str, float]:
         """Parsed ``meta_features`` JSON (null -> NaN), cached by the text itself, so
         repeated questions to one KnowledgeBase parse each stored fingerprint once."""
-        cache = self.__dict__.setdefault("_meta_cache", {})
-        values = cache.get(meta_json)
+        values = self._meta_cache.get(meta_json)
         if values is None:
-            if len(cache) >= META_CACHE_SIZE:
-                cache.clear()
-            values = cache[meta_json] = {k: (np.nan if v is None else float(v))
-                                         for k, v in json.loads(meta_json).items()}
+            if len(self._meta_cache) >= META_CACHE_SIZE:
+                self._meta_cache.clear()
+            values = self._meta_cache[meta_json] = {
+                k: (np.nan if v is None else float(v)) for k, v in json.loads(meta_json).items()}
         return values
 
     # -- writing ----------------------------------------------------------------------
@@ -322,7 +322,7 @@ class KnowledgeBase:
         Everything is validated before anything is written; on any error nothing is.
         """
         fam = get_family(family)
-        fp = self._query(data, target, task, fingerprint_of)
+        fp = query_fingerprint(data, target, task, fingerprint_of)
         metric_obj = resolve_metric(metric or DEFAULT_METRIC[fp.task], direction)
         checked = validate_trials(trials, fam.space(fp.task), metric_obj)
         if not re.fullmatch(r"[0-9a-f]{64}", fp.dataset_hash):
@@ -333,42 +333,11 @@ class KnowledgeBase:
 
         label = name or (Path(data).stem if isinstance(data, (str, os.PathLike)) else
                          f"dataset-{fp.dataset_hash[:8]}")
-        dataset_id = fp.dataset_hash[:16]
-        study_id = uuid.uuid4().hex
-        now = datetime.now(timezone.utc)
-        is_new = not self._dataset_known(dataset_id)
-
-        trial_table = pa.Table.from_pylist([
-            {"study_id": study_id, "trial_index": i, "config": config_key(t.config),
-             "score": t.score, "fit_seconds": t.fit_seconds, "status": t.status,
-             "error": t.error} for i, t in enumerate(checked)
-        ], schema=SCHEMAS["trials"])
-        study_table = pa.Table.from_pylist([{
-            "study_id": study_id, "dataset_id": dataset_id, "family": fam.name,
-            "task": fp.task, "metric": metric_obj.name, "direction": metric_obj.direction,
-            "label": label, "n_trials": len(checked), "source": source,
-            "tool_version": __version__, "created_at": now,
-        }], schema=SCHEMAS["studies"])
-        # The dataset row is written by every study, even when the dataset is known: a
-        # study then never depends on another study's files, and duplicates cost one
-        # small row (readers keep the earliest; compaction drops the rest).
-        dataset_table = pa.Table.from_pylist([{
-            "dataset_id": dataset_id, "name": label, "task": fp.task, "target": fp.target,
-            "catalogue_version": fp.catalogue_version,
-            "meta_features": json.dumps(fp.to_dict()["meta_features"], sort_keys=True),
-            "warnings": json.dumps(fp.warnings), "created_at": now,
-        }], schema=SCHEMAS["datasets"])
-        # Dataset first, trials next, the study row last: the study file commits.
-        fname = log_name(study_id, dataset_id)
-        try:
-            write_atomic(dataset_table, self.path / "datasets", fname)
-            _pause("after-dataset")
-            write_atomic(trial_table, self.path / "trials", fname)
-            _pause("after-trials")
-            write_atomic(study_table, self.path / "studies", fname)
-        except PermissionError:
-            raise BadInputError(f"history {self.path} is read-only (permission denied)") from None
-
+        dataset_id, study_id = fp.dataset_hash[:16], uuid.uuid4().hex
+        is_new = not dataset_known(self.path, dataset_id)
+        write_study(self.path, log_name(study_id, dataset_id), study_tables(
+            study_id, dataset_id, label, fam.name, fp, metric_obj, checked, source,
+            datetime.now(timezone.utc)))
         scores = [t.score for t in checked if t.status == OK]
         best = None
         if scores:
@@ -376,53 +345,10 @@ class KnowledgeBase:
         return LoggedStudy(study_id, dataset_id, is_new, fam.name, fp.task, metric_obj.name,
                            metric_obj.direction, label, len(checked), len(scores), best)
 
-    def _dataset_known(self, dataset_id: str) -> bool:
-        """Whether a committed study already refers to ``dataset_id``.
-
-        Files written by ``log`` carry the dataset id in their name, so only the few
-        merged/imported study files need reading.
-        """
-        studies_dir = self.path / "studies"
-        if any(p is not None and p[1] == dataset_id
-               for p in map(parse_log_name, visible_files(studies_dir))):
-            return True
-        found = read_dir(studies_dir, SCHEMAS["studies"], columns=["dataset_id"],
-                         filter=pads.field("dataset_id") == dataset_id,
-                         select=lambda fs: [f for f in fs if parse_log_name(f) is None])
-        return found.num_rows > 0
-
     def _check_writable(self) -> None:
-        for table in SCHEMAS:
-            d = self.path / table
-            if not d.is_dir():
-                raise BadInputError(f"history {self.path} is missing its {table}/ directory")
-            if not os.access(d, os.W_OK | os.X_OK):
-                raise BadInputError(f"history {self.path} is read-only ({d} is not writable)")
+        check_writable(self.path)
 
     # -- questions ------------------------------------------------------------------
-    def _query(self, data, target, task, fingerprint_of) -> Fingerprint:
-        if fingerprint_of is not None:
-            fp = (fingerprint_of if isinstance(fingerprint_of, Fingerprint)
-                  else Fingerprint.from_json_file(fingerprint_of))
-            if task is not None and task != fp.task:
-                raise BadInputError(f"the fingerprint is for {fp.task}, not {task}")
-            return fp
-        if data is None or target is None:
-            raise BadInputError("give the dataset and its target, or a fingerprint")
-        # a path goes straight to fingerprint(), which reads Parquet in batches
-        return fingerprint(data, target=target, task=task)
-
-    def _neighbours(self, query: Fingerprint, datasets: pd.DataFrame,
-                    k: int | None, fps: dict[str, Fingerprint] | None = None
-                    ) -> list[Neighbour]:
-        same_task = datasets[datasets["task"] == query.task]
-        if fps is None:
-            fps = self.fingerprints(same_task)
-        else:
-            fps = {i: fps[i] for i in same_task["dataset_id"]}
-        names = dict(zip(same_task["dataset_id"], same_task["name"]))
-        return nearest(query, fps, names, k=k)
-
     def similar(self, data: pd.DataFrame | str | os.PathLike | None = None, *,
                 target: str | None = None, k: int = 5, task: str | None = None,
                 fingerprint_of: Fingerprint | str | os.PathLike | None = None
@@ -433,8 +359,11 @@ class KnowledgeBase:
         """
         if k < 1:
             raise BadInputError("k must be at least 1")
-        query = self._query(data, target, task, fingerprint_of)
-        return self._neighbours(query, self.tables()["datasets"], k)
+        query = query_fingerprint(data, target, task, fingerprint_of)
+        datasets = self.tables()["datasets"]
+        same_task = datasets[datasets["task"] == query.task]
+        return nearest(query, self.fingerprints(same_task),
+                       dict(zip(same_task["dataset_id"], same_task["name"])), k=k)
 
     def suggest(self, data: pd.DataFrame | str | os.PathLike | None = None, *,
                 target: str | None = None, family: str, k: int = 10,
@@ -463,121 +392,49 @@ class KnowledgeBase:
             Drop suggestions whose expected fit time exceeds this.
 
         Raises :class:`NothingToSuggestError` when the history has no study of the
-        family for this task.
+        family for this task. See :mod:`warmstart.suggesting` for the set-up.
         """
         if k < 1:
             raise BadInputError("k must be at least 1")
         fam = get_family(family)
         strat = get_strategy(strategy or DEFAULT_STRATEGY)
-        query = self._query(data, target, task, fingerprint_of)
-        t = self.tables(family=fam.name, task=query.task)  # reads only this family's rows
-        studies = t["studies"]
-        studies = studies[(studies["family"] == fam.name) & (studies["task"] == query.task)]
-        if studies.empty:
-            raise NothingToSuggestError(
-                f"the history at {self.path} has no {query.task} study of family "
-                f"{fam.name!r}; log one first (warmstart log ...)"
-            )
-        metrics = studies["metric"].value_counts()
-        if metric is None:
-            default = DEFAULT_METRIC[query.task]
-            metric = default if default in metrics.index else str(metrics.index[0])
-        elif metric not in metrics.index:
-            raise NothingToSuggestError(
-                f"no {fam.name!r} study in the history uses metric {metric!r} "
-                f"(available: {', '.join(metrics.index)})"
-            )
-        studies = studies[studies["metric"] == metric].reset_index(drop=True)
-        datasets = t["datasets"][t["datasets"]["dataset_id"].isin(studies["dataset_id"])]
-        fps = self.fingerprints(datasets)
-        rows = {i: float(fp.values.get("rows") or np.nan) for i, fp in fps.items()}
-        if space is not None:  # a SearchSpace, a JSON list, or a JSON file's path
-            space = user_space(space, fam, query.task)
-        ctx = SuggestContext(
-            query=query, family=fam, space=space or fam.space(query.task),
-            neighbours=self._neighbours(query, datasets, None, fps), studies=studies,
-            # configs stay JSON text until a strategy reads them (most read a few rows)
-            trials=prepare_trials(t["trials"], studies, parse_configs=False),
-            dataset_rows=rows, seed=seed,
-            restricted=space is not None,
-        )
-        # Ask for more than k when a time cap may remove some.
-        want = k if max_fit_seconds is None else 10 * k
-        out = strat.propose(ctx, want)
-        if max_fit_seconds is not None:
-            out = [s for s in out if s.expected_fit_seconds is None
-                   or s.expected_fit_seconds <= max_fit_seconds]
-        out = [replace(s, rank=i + 1) for i, s in enumerate(out[:k])]
-        if not out:
-            raise NothingToSuggestError("no configuration passes the filters")
-        return out
+        query = query_fingerprint(data, target, task, fingerprint_of)
+        return suggesting.suggest(self, query, fam, strat, k=k, metric=metric, space=space,
+                                  max_fit_seconds=max_fit_seconds, seed=seed)
 
-    # -- summaries ------------------------------------------------------------------
+    # -- summaries and maintenance (implemented in warmstart.maintenance) -------------
     def info(self) -> dict[str, Any]:
-        """Counts per family and metric, fingerprints per catalogue version, size on disk."""
-        t = self.tables()
-        studies, trials, datasets = t["studies"], t["trials"], t["datasets"]
-        per = []
-        if len(studies):
-            counts = trials.groupby("study_id").size()
-            s = studies.assign(trials=studies["study_id"].map(counts).fillna(0).astype(int))
-            grouped = s.groupby(["family", "task", "metric"], sort=True)
-            for (fam, task, metric), g in grouped:
-                per.append({"family": fam, "task": task, "metric": metric,
-                            "studies": int(len(g)), "datasets": int(g["dataset_id"].nunique()),
-                            "trials": int(g["trials"].sum())})
-        versions = datasets.groupby("catalogue_version").size()
-        size = sum(f.stat().st_size for f in self.path.rglob("*") if f.is_file())
-        return {
-            "path": str(self.path),
-            "format_version": self.format_version,
-            "datasets": int(len(datasets)),
-            "studies": int(len(studies)),
-            "trials": int(len(trials)),
-            "files": sum(len(visible_files(self.path / tb)) for tb in SCHEMAS),
-            "bytes_on_disk": int(size),
-            "by_family": per,
-            "fingerprints_by_catalogue_version": {int(k): int(v) for k, v in versions.items()},
-        }
+        """Counts per family and metric, fingerprints per catalogue version, size on disk.
+        See :func:`warmstart.maintenance.info`."""
+        return maintenance.info(self)
 
-    # -- maintenance (implemented in warmstart.maintenance) ---------------------------
-    def check(self, repair: bool = False, grace_seconds: float | None = None):
+    def check(self, repair: bool = False, grace_seconds: float | None = None
+              ) -> maintenance.CheckReport:
         """Verify the history's integrity; with ``repair``, remove leftovers of killed
-        writers and set unreadable files aside. Returns a
-        :class:`~warmstart.maintenance.CheckReport` (``.ok`` is False on any problem).
+        writers and set unreadable files aside (``.ok`` is False on any problem).
         See :func:`warmstart.maintenance.check`."""
-        from warmstart import maintenance
-
         return maintenance.check(self, repair=repair, grace_seconds=grace_seconds)
 
     def compact(self) -> dict[str, Any]:
         """Merge each table's files into one, beside live readers and writers.
         See :func:`warmstart.maintenance.compact`."""
-        from warmstart import maintenance
-
         return maintenance.compact(self)
 
     def export(self, file: str | os.PathLike) -> dict[str, Any]:
         """Write the visible history to one portable file.
         See :func:`warmstart.maintenance.export`."""
-        from warmstart import maintenance
-
         return maintenance.export(self, file)
 
     def import_(self, file: str | os.PathLike) -> dict[str, Any]:
         """Merge an exported history (``import`` is a Python keyword, hence the ``_``).
         See :func:`warmstart.maintenance.import_`."""
-        from warmstart import maintenance
-
         return maintenance.import_(self, file)
 
     @staticmethod
     def migrate(path: str | os.PathLike | None = None) -> dict[str, Any]:
         """Convert an older-format history in place. See :func:`warmstart.maintenance.migrate`."""
-        from warmstart import maintenance
-
         return maintenance.migrate(resolve_path(path))
 
 
 __all__ = ["DEFAULT_PATH", "ENV_VAR", "FORMAT_VERSION", "KnowledgeBase", "LoggedStudy",
-           "MINIMIZE", "resolve_path"]
+           "MINIMIZE", "query_fingerprint", "resolve_path"]

@@ -1,4 +1,4 @@
-"""Keeping a team history healthy: check, repair, compact, migrate, export and import.
+"""Keeping a team history healthy: info, check, repair, compact, migrate, export, import.
 
 All of these work beside live readers and writers, without locks (see
 :mod:`warmstart.storage` for the file rules they rely on).
@@ -38,24 +38,25 @@ import zipfile
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from warmstart import __version__
 from warmstart.errors import BadInputError
 from warmstart.families import FAMILIES
 from warmstart.fingerprint import KNOWN_CATALOGUE_VERSIONS
-from warmstart.history import (
+from warmstart.layout import (
     FORMAT_FILE,
     FORMAT_VERSION,
     KEYS,
     SCHEMAS,
-    KnowledgeBase,
     dedupe,
+    marker_is_current,
+    read_marker,
+    write_marker,
 )
 from warmstart.metrics import MAXIMIZE, MINIMIZE
 from warmstart.spaces import config_key
@@ -71,12 +72,17 @@ from warmstart.storage import (
     write_atomic,
     write_bytes_atomic,
 )
+from warmstart.tasks import TASKS
+from warmstart.values import finite_or_none
+from warmstart.version import __version__
+
+if TYPE_CHECKING:  # annotations only: warmstart.history imports this module
+    from warmstart.history import KnowledgeBase
 
 DEFAULT_GRACE_SECONDS = 900.0
 QUARANTINE = "quarantine"
 EXPORT_KIND = "warmstart-history-export"
 EXPORT_MARKER = "warmstart-export.json"
-TASKS = ("classification", "regression")
 STATUSES = ("ok", "failed")
 EXAMPLES = 3  # how many offending ids a finding quotes
 
@@ -206,6 +212,16 @@ def content_problems(datasets: pd.DataFrame, studies: pd.DataFrame, trials: pd.D
         "datasets whose meta-features or warnings are not valid JSON")
 
 
+def _refuse_problems(tables: dict[str, pd.DataFrame], source: Any, version: int) -> None:
+    """Raise :class:`BadInputError` naming the first problem :func:`content_problems`
+    finds in rows about to be written from ``source``."""
+    report = CheckReport(str(source), version)
+    content_problems(tables["datasets"], tables["studies"], tables["trials"], report)
+    if not report.ok:
+        first = report.problems[0]
+        raise BadInputError(f"{source} fails the check '{first.check}': {first.detail}")
+
+
 def _conflicting(frame: pd.DataFrame, keys: list[str], ignore: list[str]) -> list[str]:
     """Keys held by rows that differ in anything but ``ignore`` (true id clashes)."""
     if frame.empty:
@@ -241,15 +257,32 @@ def check(kb: KnowledgeBase, repair: bool = False,
         raise BadInputError("the grace period must be a finite number of seconds >= 0")
     root = kb.path
     report = CheckReport(str(root), kb.format_version)
-    marker = json.loads((root / FORMAT_FILE).read_text(encoding="utf-8"))
-    report.add("format marker", [] if marker.get("format_version") == FORMAT_VERSION
-               and sorted(marker.get("tables", [])) == sorted(SCHEMAS) else [FORMAT_FILE],
+    report.add("format marker", [] if marker_is_current(read_marker(root)[0]) else [FORMAT_FILE],
                "marker files with an unexpected version or table list",
                f"format version {FORMAT_VERSION}")
     if repair and not os.access(root, os.W_OK):
         raise BadInputError(f"history {root} is read-only; cannot repair it")
+    if not _check_files(root, repair, report):
+        # row-level checks would only repeat the reader's error
+        report.findings.append(Finding("rows", NOTE, "skipped: fix the unreadable files first"))
+        return report
+    per_file = {t: [(f, read_file(f, SCHEMAS[t])) for f in visible_files(root / t)]
+                for t in SCHEMAS}
+    _check_leftovers(root, per_file, grace, repair, report)
+    _check_identifiers(per_file, report)
+    visible = kb.tables()
+    content_problems(visible["datasets"], visible["studies"], visible["trials"], report)
+    report.counts = {"files": sum(len(visible_files(root / t)) for t in SCHEMAS),
+                     **{t: int(len(v)) for t, v in visible.items()}}
+    return report
 
-    # 1. every file readable, with the right schema
+
+_PerFile = dict[str, list[tuple[Path, pa.Table]]]  # table -> (file, its rows)
+
+
+def _check_files(root: Path, repair: bool, report: CheckReport) -> bool:
+    """Every file readable, with its table's schema (with ``repair``: bad ones moved to
+    ``quarantine/``). Returns whether every remaining file is readable."""
     bad_files, n_files = [], 0
     for table, schema in SCHEMAS.items():
         for f in visible_files(root / table):
@@ -267,16 +300,19 @@ def check(kb: KnowledgeBase, repair: bool = False,
         bad_files = []
     report.add("readable files", [f"{t}/{f.name}: {why}" for t, f, why in bad_files],
                "files unreadable or not of the table's schema", f"{n_files} files")
-    if bad_files:  # row-level checks would only repeat the reader's error
-        report.findings.append(Finding("rows", NOTE, "skipped: fix the unreadable files first"))
-        return report
+    return not bad_files
 
-    # 2. per-file rows, to tell leftovers from committed data
-    per_file = {t: [(f, read_file(f, SCHEMAS[t])) for f in visible_files(root / t)]
-                for t in SCHEMAS}
-    committed = {s for _f, tb in per_file["studies"] for s in tb.column("study_id").to_pylist()}
-    referenced = {d for _f, tb in per_file["studies"]
-                  for d in tb.column("dataset_id").to_pylist()}
+
+def _committed(per_file: _PerFile) -> tuple[set[str], set[str]]:
+    """Ids of the committed studies and of the datasets they refer to."""
+    studies = [tb for _f, tb in per_file["studies"]]
+    return ({s for tb in studies for s in tb.column("study_id").to_pylist()},
+            {d for tb in studies for d in tb.column("dataset_id").to_pylist()})
+
+
+def _leftovers(root: Path, per_file: _PerFile) -> list[Path]:
+    """Temporary files, and trial or dataset files no committed study refers to."""
+    committed, referenced = _committed(per_file)
     leftovers: list[Path] = list(temp_files(root))
     for table in ("trials", "datasets"):
         for f, tb in per_file[table]:
@@ -289,6 +325,14 @@ def check(kb: KnowledgeBase, repair: bool = False,
                 orphan = not referenced.intersection(tb.column("dataset_id").to_pylist())
             if orphan:
                 leftovers.append(f)
+    return leftovers
+
+
+def _check_leftovers(root: Path, per_file: _PerFile, grace: float, repair: bool,
+                     report: CheckReport) -> None:
+    """Leftovers older than ``grace`` seconds are problems (removed with ``repair``);
+    younger ones are noted and left alone (a writer may still be running)."""
+    leftovers = _leftovers(root, per_file)
     old = [f for f in leftovers if age_seconds(f) >= grace]
     young = len(leftovers) - len(old)
     if old and repair:
@@ -308,7 +352,10 @@ def check(kb: KnowledgeBase, repair: bool = False,
             "files being written", NOTE, f"{young} temporary or uncommitted files younger "
             f"than {grace:g} s (a writer may be running; left alone)"))
 
-    # 3. identifiers and rows of what readers see
+
+def _check_identifiers(per_file: _PerFile, report: CheckReport) -> None:
+    """No key shared by committed rows that differ (beyond a dataset's name and time)."""
+    committed, referenced = _committed(per_file)
     raw = {t: pa.concat_tables([tb for _f, tb in per_file[t]]).to_pandas()
            if per_file[t] else SCHEMAS[t].empty_table().to_pandas() for t in SCHEMAS}
     raw["trials"] = raw["trials"][raw["trials"]["study_id"].isin(committed)]
@@ -318,11 +365,6 @@ def check(kb: KnowledgeBase, repair: bool = False,
                + _conflicting(raw["trials"], KEYS["trials"], [])
                + _conflicting(raw["datasets"], KEYS["datasets"], ["name", "created_at"]),
                "identifiers shared by rows with different content")
-    visible = kb.tables()
-    content_problems(visible["datasets"], visible["studies"], visible["trials"], report)
-    report.counts = {"files": sum(len(visible_files(root / t)) for t in SCHEMAS),
-                     **{t: int(len(v)) for t, v in visible.items()}}
-    return report
 
 
 # -- content hash -----------------------------------------------------------------------
@@ -347,6 +389,35 @@ def summary(kb: KnowledgeBase) -> dict[str, Any]:
             **{n: int(len(v)) for n, v in t.items()}, "content_hash": content_hash(t)}
 
 
+def info(kb: KnowledgeBase) -> dict[str, Any]:
+    """Counts per family, task and metric, fingerprints per catalogue version, files and
+    size on disk (what ``warmstart kb info`` prints)."""
+    t = kb.tables()
+    studies, trials, datasets = t["studies"], t["trials"], t["datasets"]
+    per = []
+    if len(studies):
+        counts = trials.groupby("study_id").size()
+        s = studies.assign(trials=studies["study_id"].map(counts).fillna(0).astype(int))
+        grouped = s.groupby(["family", "task", "metric"], sort=True)
+        for (fam, task, metric), g in grouped:
+            per.append({"family": fam, "task": task, "metric": metric,
+                        "studies": int(len(g)), "datasets": int(g["dataset_id"].nunique()),
+                        "trials": int(g["trials"].sum())})
+    versions = datasets.groupby("catalogue_version").size()
+    size = sum(f.stat().st_size for f in kb.path.rglob("*") if f.is_file())
+    return {
+        "path": str(kb.path),
+        "format_version": kb.format_version,
+        "datasets": int(len(datasets)),
+        "studies": int(len(studies)),
+        "trials": int(len(trials)),
+        "files": sum(len(visible_files(kb.path / tb)) for tb in SCHEMAS),
+        "bytes_on_disk": int(size),
+        "by_family": per,
+        "fingerprints_by_catalogue_version": {int(k): int(v) for k, v in versions.items()},
+    }
+
+
 # -- compact ----------------------------------------------------------------------------
 def compact(kb: KnowledgeBase) -> dict[str, Any]:
     """Merge each table's committed rows into one file, then delete the merged files.
@@ -367,40 +438,43 @@ def compact(kb: KnowledgeBase) -> dict[str, Any]:
               for t in SCHEMAS}
     studies = dedupe(pa.concat_tables([tb for _f, tb in listed["studies"]])
                      if listed["studies"] else SCHEMAS["studies"].empty_table(), "studies")
-    committed = set(studies.column("study_id").to_pylist())
-    referenced = set(studies.column("dataset_id").to_pylist())
-    removed = 0
-    for table in ("datasets", "trials", "studies"):
-        files = listed[table]
-        if len(files) <= 1:
-            continue
-        key_col = "dataset_id" if table == "datasets" else "study_id"
-        wanted = referenced if table == "datasets" else committed
-        parts = []
-        for f, tb in files:
-            parsed = parse_log_name(f)
-            if parsed is not None and parsed[0] not in committed:
-                continue  # an uncommitted writer's file: not ours to merge
-            mask = np.isin(np.asarray(tb.column(key_col).to_pylist(), dtype=object),
-                           list(wanted))
-            parts.append(tb.filter(pa.array(mask, pa.bool_())))
-        merged = dedupe(pa.concat_tables(parts), table) if parts else None
-        if merged is None or merged.num_rows == 0:
-            continue
-        if table == "trials":
-            merged = family_order(merged, studies)
-        write_atomic(merged, kb.path / table, batch_name("merged"), ROW_GROUP_ROWS)
-        have = set(_keys(merged, table))
-        for f, tb in files:
-            parsed = parse_log_name(f)
-            if parsed is not None and parsed[0] not in committed:
-                continue  # a running writer's file stays, even if its rows are known
-            if set(_keys(tb, table)) <= have:
-                f.unlink(missing_ok=True)
-                removed += 1
-        fsync_dir(kb.path / table)
+    removed = sum(_merge_table(kb.path / table, table, listed[table], studies)
+                  for table in ("datasets", "trials", "studies"))
     after = summary(kb)
     return {"path": str(kb.path), "before": before, "after": after, "removed": removed}
+
+
+def _merge_table(directory: Path, table: str, files: list[tuple[Path, pa.Table]],
+                 studies: pa.Table) -> int:
+    """Merge the committed rows of ``files`` (one table's, as listed) into one file, then
+    delete those whose every row it holds; returns how many were deleted."""
+    if len(files) <= 1:
+        return 0
+    committed = set(studies.column("study_id").to_pylist())
+    key_col = "dataset_id" if table == "datasets" else "study_id"
+    wanted = (set(studies.column("dataset_id").to_pylist()) if table == "datasets"
+              else committed)
+    # an uncommitted writer's file is not ours to merge, and stays even if its rows
+    # are known
+    ours = [(f, tb) for f, tb in files
+            if (parsed := parse_log_name(f)) is None or parsed[0] in committed]
+    parts = [tb.filter(pa.array(np.isin(np.asarray(tb.column(key_col).to_pylist(),
+                                                   dtype=object), list(wanted)), pa.bool_()))
+             for _f, tb in ours]
+    merged = dedupe(pa.concat_tables(parts), table) if parts else None
+    if merged is None or merged.num_rows == 0:
+        return 0
+    if table == "trials":
+        merged = family_order(merged, studies)
+    write_atomic(merged, directory, batch_name("merged"), ROW_GROUP_ROWS)
+    have = set(_keys(merged, table))
+    removed = 0
+    for f, tb in ours:
+        if set(_keys(tb, table)) <= have:
+            f.unlink(missing_ok=True)
+            removed += 1
+    fsync_dir(directory)
+    return removed
 
 
 def family_order(trials: pa.Table, studies: pa.Table) -> pa.Table:
@@ -532,11 +606,7 @@ def import_(kb: KnowledgeBase, file: str | os.PathLike) -> dict[str, Any]:
     """
     marker, tables = read_export(file)
     frames = {t: dedupe(v, t).to_pandas() for t, v in tables.items()}
-    report = CheckReport(str(file), int(marker["format_version"]))
-    content_problems(frames["datasets"], frames["studies"], frames["trials"], report)
-    if not report.ok:
-        first = report.problems[0]
-        raise BadInputError(f"{file} fails the check '{first.check}': {first.detail}")
+    _refuse_problems(frames, file, int(marker["format_version"]))
     kb._check_writable()
     have = kb.tables()
     new = frames["studies"]
@@ -578,14 +648,7 @@ def migrate(path: str | os.PathLike) -> dict[str, Any]:
     commit point) is written.
     """
     root = Path(path)
-    marker_path = root / FORMAT_FILE
-    if not marker_path.is_file():
-        raise BadInputError(f"{root} is not a warmstart history (no {FORMAT_FILE})")
-    try:
-        marker = json.loads(marker_path.read_text(encoding="utf-8"))
-        version = int(marker["format_version"])
-    except (ValueError, KeyError, TypeError):
-        raise BadInputError(f"{marker_path} is not a valid history marker file") from None
+    marker, version = read_marker(root)
     if version == FORMAT_VERSION:
         return {"path": str(root), "from_version": version, "to_version": version,
                 "migrated": False, "datasets": 0, "studies": 0, "trials": 0}
@@ -595,21 +658,9 @@ def migrate(path: str | os.PathLike) -> dict[str, Any]:
     if not os.access(root, os.W_OK):
         raise BadInputError(f"history {root} is read-only; cannot migrate it")
     src = root / FORMAT0_FILE
-    try:
-        flat = pq.read_table(src).to_pandas()
-    except (OSError, pa.ArrowException) as exc:
-        raise BadInputError(f"cannot read the format-0 table {src}: {exc}") from None
-    missing = [c for c in FORMAT0_COLUMNS if c not in flat.columns]
-    if missing:
-        raise BadInputError(f"{src} is not a format-0 table (missing {', '.join(missing)})")
     by = str(marker.get("created_by", "warmstart 0.0"))
-    tables = _from_format0(flat, by.replace("warmstart ", ""))
-    report = CheckReport(str(root), 0)
-    content_problems(*(tables[t].to_pandas() for t in ("datasets", "studies", "trials")),
-                     report)
-    if not report.ok:
-        first = report.problems[0]
-        raise BadInputError(f"{src} fails the check '{first.check}': {first.detail}")
+    tables = _from_format0(_read_format0(src), by.replace("warmstart ", ""))
+    _refuse_problems({t: v.to_pandas() for t, v in tables.items()}, src, 0)
     for t in SCHEMAS:  # clear what an interrupted earlier migration wrote (never visible)
         d = root / t
         d.mkdir(exist_ok=True)
@@ -617,16 +668,25 @@ def migrate(path: str | os.PathLike) -> dict[str, Any]:
             f.unlink()
     for t in ("datasets", "trials", "studies"):
         write_atomic(tables[t], root / t, batch_name("migrated"))
-    new_marker = {"format_version": FORMAT_VERSION, "created_by": f"warmstart {__version__}",
-                  "tables": list(SCHEMAS), "migrated_from": {"format_version": 0,
-                                                             "created_by": by}}
-    write_bytes_atomic(json.dumps(new_marker, indent=2).encode() + b"\n", marker_path)
+    write_marker(root, migrated_from={"format_version": 0, "created_by": by})
     backup = root / "backup-format-0"
     backup.mkdir(exist_ok=True)
     shutil.move(str(src), str(backup / FORMAT0_FILE))
     return {"path": str(root), "from_version": 0, "to_version": FORMAT_VERSION,
             "migrated": True, **{t: int(tables[t].num_rows) for t in SCHEMAS},
             "backup": str(backup / FORMAT0_FILE)}
+
+
+def _read_format0(src: Path) -> pd.DataFrame:
+    """The flat format-0 table, with every column :data:`FORMAT0_COLUMNS` names."""
+    try:
+        flat = pq.read_table(src).to_pandas()
+    except (OSError, pa.ArrowException) as exc:
+        raise BadInputError(f"cannot read the format-0 table {src}: {exc}") from None
+    missing = [c for c in FORMAT0_COLUMNS if c not in flat.columns]
+    if missing:
+        raise BadInputError(f"{src} is not a format-0 table (missing {', '.join(missing)})")
+    return flat
 
 
 def _format0_config(text: Any) -> str:
@@ -655,8 +715,8 @@ def _from_format0(flat: pd.DataFrame, tool_version: str) -> dict[str, pa.Table]:
         "n_trials": first["study"].map(flat["study"].value_counts()).astype("int32"),
         "source": "log", "tool_version": tool_version, "created_at": first["logged_at"]})
     ds = first.sort_values("logged_at", kind="stable").drop_duplicates("dataset_id")
-    meta = [json.dumps({c[len(FP_PREFIX):]: (None if not np.isfinite(v) else float(v))
-                        for c, v in zip(fp_cols, row)}, sort_keys=True)
+    meta = [json.dumps({c[len(FP_PREFIX):]: finite_or_none(v) for c, v in zip(fp_cols, row)},
+                       sort_keys=True)
             for row in ds[fp_cols].to_numpy(dtype=float)]
     datasets = pd.DataFrame({
         "dataset_id": ds["dataset_id"], "name": ds["dataset"], "task": ds["task"],

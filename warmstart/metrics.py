@@ -12,11 +12,12 @@ from dataclasses import dataclass
 from sklearn.metrics import get_scorer_names
 
 from warmstart.errors import BadInputError
+from warmstart.tasks import CLASSIFICATION, REGRESSION
 
 MAXIMIZE = "maximize"
 MINIMIZE = "minimize"
 
-DEFAULT_METRIC = {"classification": "balanced_accuracy", "regression": "r2"}
+DEFAULT_METRIC = {CLASSIFICATION: "balanced_accuracy", REGRESSION: "r2"}
 
 # Scorers bounded in [0, 1]; everything else named ``neg_*`` is bounded above by 0.
 _UNIT_INTERVAL_PREFIXES = (
@@ -37,10 +38,6 @@ class Metric:
     direction: str
     low: float = float("-inf")
     high: float = float("inf")
-
-    @property
-    def higher_is_better(self) -> bool:
-        return self.direction == MAXIMIZE
 
     def check(self, score: float) -> str | None:
         """Return a description of why ``score`` is impossible, or None when it is fine."""

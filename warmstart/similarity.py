@@ -20,6 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from warmstart.fingerprint import CATALOGUE, Fingerprint
+from warmstart.values import finite_or_none
 
 CLIP = 5.0
 AGREE_STEP = 0.05  # scaled units within which two agreements count as equally close
@@ -135,16 +136,14 @@ class Neighbour:
 
     def to_dict(self) -> dict[str, object]:
         def items(rows):
-            return [{"meta_feature": n, "query": _j(a), "neighbour": _j(b)} for n, a, b in rows]
+            return [{"meta_feature": n, "query": finite_or_none(a),
+                     "neighbour": finite_or_none(b)} for n, a, b in rows]
 
         return {"dataset_id": self.dataset_id, "name": self.name,
-                "distance": _j(self.distance), "similarity": _j(self.similarity),
+                "distance": finite_or_none(self.distance),
+                "similarity": finite_or_none(self.similarity),
                 "shared_meta_features": self.shared_features,
                 "agree_most": items(self.agree), "differ_most": items(self.differ)}
-
-
-def _j(x: float) -> float | None:
-    return float(x) if np.isfinite(x) else None
 
 
 def nearest(query: Fingerprint, history: Mapping[str, Fingerprint], names: Mapping[str, str],

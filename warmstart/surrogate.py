@@ -23,7 +23,7 @@ learn a response surface from.
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -109,4 +109,41 @@ def fit_surrogate(configs: Sequence[Mapping[str, Any]], normalised: np.ndarray,
     return StudySurrogate(space, kind, model)
 
 
-__all__ = ["KINDS", "MIN_TRIALS", "StudySurrogate", "fit_surrogate"]
+class SurrogateCache:
+    """Fitted study surrogates and their predictions, by (study id, kind).
+
+    A study's surrogate depends only on that study's trials, never on the query, so one
+    cache can serve many questions: the backtest shares one over all held-out datasets.
+    Surrogates fitted on other scores of the same trials (e.g. median-anchored ones) go
+    in a :meth:`section` of their own.
+    """
+
+    def __init__(self) -> None:
+        self._models: dict[tuple[str, str], StudySurrogate] = {}
+        self._predictions: dict[tuple[str, str], dict[str, float]] = {}
+        self._sections: dict[str, SurrogateCache] = {}
+
+    def model(self, study_id: str, kind: str,
+              fit: Callable[[], StudySurrogate]) -> StudySurrogate:
+        """The cached surrogate of one study, fitted by ``fit()`` on first need."""
+        if (study_id, kind) not in self._models:
+            self._models[(study_id, kind)] = fit()
+        return self._models[(study_id, kind)]
+
+    def predict(self, study_id: str, kind: str, configs: Sequence[Mapping[str, Any]],
+                keys: Sequence[str], fit: Callable[[], StudySurrogate]) -> np.ndarray:
+        """Predictions of one study's surrogate, shape (len(configs),), cached by the
+        configurations' canonical ``keys``."""
+        cached = self._predictions.setdefault((study_id, kind), {})
+        todo = [i for i, key in enumerate(keys) if key not in cached]
+        if todo:
+            pred = self.model(study_id, kind, fit).predict([configs[i] for i in todo])
+            cached.update({keys[i]: float(v) for i, v in zip(todo, pred)})
+        return np.array([cached[key] for key in keys], dtype=float)
+
+    def section(self, name: str) -> SurrogateCache:
+        """A cache of its own for surrogates fitted on other scores, kept in this one."""
+        return self._sections.setdefault(name, SurrogateCache())
+
+
+__all__ = ["KINDS", "MIN_TRIALS", "StudySurrogate", "SurrogateCache", "fit_surrogate"]

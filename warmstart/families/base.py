@@ -7,8 +7,8 @@ from dataclasses import dataclass
 from typing import Any
 
 from warmstart.spaces import SearchSpace
+from warmstart.tasks import TASKS
 
-TASKS = ("classification", "regression")
 CATEGORICAL_ENCODINGS = ("one_hot", "ordinal", "native")
 
 

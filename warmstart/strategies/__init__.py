@@ -10,16 +10,17 @@ from warmstart.spaces import user_space
 from warmstart.strategies.anchored import AnchoredPortfolio
 from warmstart.strategies.base import (
     Strategy,
-    SuggestContext,
     Suggestion,
     canonical_key,
     normalise_scores,
     prepare_trials,
 )
 from warmstart.strategies.baselines import LibraryDefaults, RandomConfigs
+from warmstart.strategies.context import SuggestContext
 from warmstart.strategies.hedged import HedgedPortfolio
 from warmstart.strategies.nearest_best import NearestBest
 from warmstart.strategies.portfolio import GreedyPortfolio
+from warmstart.strategies.trial_index import TrialIndex
 
 _ALL: tuple[Strategy, ...] = (
     GreedyPortfolio("portfolio"),
@@ -52,4 +53,5 @@ def get_strategy(name: str | Strategy) -> Strategy:
 __all__ = ["DEFAULT_STRATEGY", "STRATEGIES", "AnchoredPortfolio", "GreedyPortfolio",
            "HedgedPortfolio", "LibraryDefaults",
            "NearestBest", "RandomConfigs", "Strategy", "SuggestContext", "Suggestion",
-           "canonical_key", "get_strategy", "normalise_scores", "prepare_trials", "user_space"]
+           "TrialIndex", "canonical_key", "get_strategy", "normalise_scores", "prepare_trials",
+           "user_space"]

@@ -34,7 +34,8 @@ import numpy as np
 import pandas as pd
 
 from warmstart.errors import BadInputError
-from warmstart.strategies.base import SuggestContext, Suggestion
+from warmstart.strategies.base import Suggestion
+from warmstart.strategies.context import SuggestContext
 from warmstart.strategies.portfolio import GreedyPortfolio
 
 
@@ -45,30 +46,23 @@ def _anchor(s: np.ndarray, med: np.ndarray, hi: np.ndarray, cap: float) -> np.nd
     return np.where(gap > 0, 1.0 - r / cap, 1.0)
 
 
-def median_anchored(normalised: np.ndarray, regret_cap: float = 1.0) -> np.ndarray:
-    """One study's scores as one minus capped regret, scaled to [0, 1].
+def anchored_trials(trials: pd.DataFrame, regret_cap: float = 1.0) -> pd.DataFrame:
+    """A copy of ``trials`` whose ``normalised`` column is median-anchored per study.
 
     Parameters
     ----------
-    normalised : ndarray of shape (n_trials,)
-        Oriented scores (higher is better), e.g. min-max normalised.
+    trials : DataFrame
+        With columns ``study_id`` and ``normalised`` (oriented scores, higher is
+        better, e.g. min-max normalised).
     regret_cap : float, >= 1
         ``R``: regrets ``(max - s) / (max - median)`` above it count as ``R``.
 
     Returns
     -------
-    ndarray of shape (n_trials,)
-        ``1 - min(regret, R) / R``; all ones when max == median.
+    DataFrame
+        ``trials`` with ``normalised`` replaced by ``1 - min(regret, R) / R`` within
+        each study (all ones for a study whose median equals its best).
     """
-    s = np.asarray(normalised, dtype=float)
-    if s.size == 0:
-        return s
-    return _anchor(s, np.full_like(s, np.median(s)), np.full_like(s, s.max()), regret_cap)
-
-
-def anchored_trials(trials: pd.DataFrame, regret_cap: float = 1.0) -> pd.DataFrame:
-    """A copy of ``trials`` whose ``normalised`` column is median-anchored per study
-    (:func:`median_anchored` applied to each study's rows)."""
     out = trials.copy()
     if out.empty:
         return out
@@ -99,10 +93,13 @@ class AnchoredPortfolio(GreedyPortfolio):
     def propose(self, ctx: SuggestContext, k: int) -> list[Suggestion]:
         # Own surrogate cache per cap. The anchoring depends only on each study's own
         # trials, so the cache stays valid across queries (as for the min-max ones).
-        cache = ctx.surrogates.setdefault(("median-anchored", repr(self.regret_cap)), {})
-        view = dataclasses.replace(ctx, trials=anchored_trials(ctx.trials, self.regret_cap),
-                                   surrogates=cache, extra=ctx.extra)
+        scores = pd.DataFrame({"study_id": ctx.trials.column("study_id"),
+                               "normalised": ctx.trials.column("normalised")})
+        anchored = anchored_trials(scores, self.regret_cap)["normalised"].to_numpy()
+        view = dataclasses.replace(
+            ctx, trials=ctx.trials.rescored(anchored),
+            surrogates=ctx.surrogates.section(f"median-anchored {self.regret_cap!r}"))
         return super().propose(view, k)
 
 
-__all__ = ["AnchoredPortfolio", "anchored_trials", "median_anchored"]
+__all__ = ["AnchoredPortfolio", "anchored_trials"]

@@ -5,7 +5,8 @@ from __future__ import annotations
 import numpy as np
 
 from warmstart.spaces import config_key
-from warmstart.strategies.base import SuggestContext, Suggestion
+from warmstart.strategies.base import Suggestion
+from warmstart.strategies.context import SuggestContext
 
 
 class RandomConfigs:
@@ -50,7 +51,7 @@ class LibraryDefaults:
         config = ctx.space.clip({}) if ctx.restricted else {}
         if config is None:
             return []
-        allowed = ctx.candidate_keys()
+        allowed = ctx.candidate_keys
         if allowed is not None and ctx.key(config) not in allowed:
             return []
         return [Suggestion(rank=1, config=config, strategy=self.name)]

@@ -19,7 +19,8 @@ from __future__ import annotations
 import dataclasses
 
 from warmstart.errors import BadInputError
-from warmstart.strategies.base import SuggestContext, Suggestion
+from warmstart.strategies.base import Suggestion
+from warmstart.strategies.context import SuggestContext
 from warmstart.strategies.portfolio import GreedyPortfolio
 
 

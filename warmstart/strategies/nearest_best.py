@@ -10,7 +10,8 @@ first suggestion, its best trial.
 
 from __future__ import annotations
 
-from warmstart.strategies.base import SuggestContext, Suggestion
+from warmstart.strategies.base import Suggestion
+from warmstart.strategies.context import SuggestContext
 
 
 class NearestBest:
@@ -20,10 +21,10 @@ class NearestBest:
     stochastic = False
 
     def propose(self, ctx: SuggestContext, k: int) -> list[Suggestion]:
-        allowed = ctx.candidate_keys()
+        allowed = ctx.candidate_keys
         # a neighbour's trials are ranked when the round-robin first reaches it
-        sizes = [sum(ctx.study_positions(s).size for s in ctx.dataset_studies(nb.dataset_id))
-                 for nb in ctx.neighbours]
+        sizes = [sum(ctx.trials.study_positions(s).size
+                     for s in ctx.dataset_studies(nb.dataset_id)) for nb in ctx.neighbours]
         out: list[Suggestion] = []
         seen: set[str] = set()
         depth = 0
@@ -32,14 +33,14 @@ class NearestBest:
                 if depth >= n or len(out) >= k:
                     continue
                 pos = int(ctx.dataset_positions(nb.dataset_id)[depth])
-                config = ctx.space.clip(ctx.configs_at([pos])[0])
+                config = ctx.space.clip(ctx.trials.configs_at([pos])[0])
                 if config is None:
                     continue
                 key = ctx.key(config)
                 if key in seen or (allowed is not None and key not in allowed):
                     continue
                 seen.add(key)
-                row = ctx.rows_at([pos]).iloc[0]
+                row = ctx.trials.rows_at([pos]).iloc[0]
                 out.append(ctx.from_trial(self.name, row, nb, config, rank=len(out) + 1))
             depth += 1
         return out

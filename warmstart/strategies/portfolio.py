@@ -39,7 +39,8 @@ import math
 
 import numpy as np
 
-from warmstart.strategies.base import SuggestContext, Suggestion
+from warmstart.strategies.base import Suggestion
+from warmstart.strategies.context import SuggestContext
 
 MAX_SUPPORT = 10
 
@@ -152,8 +153,9 @@ class GreedyPortfolio:
             return []
         unit_ids = [sid for _, sid in units]
         # only the sources' rows are parsed and keyed (in the order of ctx.trials)
-        pos = np.unique(np.concatenate([ctx.study_positions(sid) for sid in set(unit_ids)]))
-        src = ctx.rows_at(pos).assign(key=ctx.keys_at(pos))
+        pos = np.unique(np.concatenate([ctx.trials.study_positions(sid)
+                                        for sid in set(unit_ids)]))
+        src = ctx.trials.rows_at(pos).assign(key=ctx.trials.keys_at(pos))
         # candidates: canonical key -> configuration inside the (user) space
         cands: dict[str, dict] = {}
         pool = ctx.candidates if ctx.candidates is not None else list(src["config"])
@@ -189,7 +191,7 @@ class GreedyPortfolio:
         if nb is None:
             return None
         positions = ctx.dataset_positions(nb.dataset_id)
-        for config in ctx.configs_at(positions):
+        for config in ctx.trials.configs_at(positions):
             clipped = ctx.space.clip(config)
             if clipped is not None and ctx.key(clipped) in row_of:
                 return row_of[ctx.key(clipped)]
