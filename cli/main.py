@@ -243,19 +243,33 @@ def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strateg
     click.echo(f"{len(found)} starting configurations for {family} "
                f"({found[0].strategy}, metric {found[0].metric or metric or 'default'}); "
                "norm. score: 1 = best trial of its study")
+    if found[0].choice is not None:
+        c = found[0].choice
+        click.echo(f"auto chose {c['chosen']} on {c['datasets']} datasets ({c['rule']})")
     pooled = any(s.expected_normalised is not None for s in found)
+    explained = any(s.gain is not None for s in found)
     rows = [[s.rank, s.source_name or "-", s.distance, s.normalised_score, s.score]
             + ([None if s.expected_normalised is None else
                 fmt(s.expected_normalised) + ("*" if s.predicted else "")] if pooled else [])
+            + ([_best_on(s), s.gain] if explained else [])
             + [s.expected_fit_seconds, s.config or "(estimator defaults)"] for s in found]
     headers = ["#", "from dataset", "distance", "norm. score", "score"]
     headers += ["expected"] if pooled else []
+    headers += ["best on (norm. score)", "adds"] if explained else []
     headers += ["est. fit s", "configuration"]
-    click.echo(table(rows, headers, align="rlrrr" + ("r" if pooled else "") + "rl"))
+    click.echo(table(rows, headers, align="rlrrr" + ("r" if pooled else "")
+                     + ("lr" if explained else "") + "rl"))
     if pooled:
         click.echo("expected: similarity-weighted mean norm. score over the nearest datasets "
                    "(* = partly predicted by surrogates)")
+    if explained:
+        click.echo("best on: datasets where it was run and scored highest; adds: its gain in "
+                   "the list's objective over the suggestions above it")
     click.echo("Starting points only: validate the tuned model on held-out data.")
+
+
+def _best_on(s) -> str:
+    return ", ".join(f"{b['name']} {fmt(b['normalised'])}" for b in s.best_on[:2]) or "-"
 
 
 # Command groups kept in their own modules register themselves on ``main``.
