@@ -8,7 +8,7 @@ from pathlib import Path
 import click
 
 from cli.main import emit_json, fmt, handle_errors, json_option, kb_option, main, table
-from warmstart.backtest import DEFAULT_KS, backtest, plot_regret
+from warmstart.backtest import DEFAULT_KS, backtest, plot_regret, verdict
 from warmstart.errors import BadInputError
 from warmstart.history import KnowledgeBase, resolve_path
 from warmstart.strategies import STRATEGIES
@@ -79,6 +79,8 @@ def backtest_cmd(family, ks, strategies, metric, random_repeats, seed, plot_file
                      f"{100 * r['predicted_share']:.0f}%"])
     click.echo(table(rows, ["strategy", "k", "mean", "std", "IQR", "beats random",
                             "predicted lookups"], align="lrrrrrr"))
+    for line in verdict(result):
+        click.echo(line)
     if result.skipped:
         click.echo(f"skipped (best = median): {', '.join(result.skipped)}")
     if plot_file is not None:
