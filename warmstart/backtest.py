@@ -146,7 +146,7 @@ def verdict(result: BacktestResult, k: int = 5) -> list[str]:
         line += f" (mean regret {order.iloc[0]:.3f}"
         if len(order) > 1:
             line += f"; {order.iloc[1] - order.iloc[0]:.3f} below {order.index[1]}"
-        if RANDOM in mean.index and win != RANDOM:
+        if RANDOM in mean.index and RANDOM not in order.index[:2]:
             line += f", {mean[RANDOM] - order.iloc[0]:.3f} below {RANDOM}"
         line += f") over {n} held-out datasets"
         if n < SMALL_SAMPLE:
