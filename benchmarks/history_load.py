@@ -99,7 +99,7 @@ def generate(root: Path, n_datasets: int, n_trials: int, seed: int = 0) -> Knowl
         did = f"{d:016x}"
         sid = f"{d:032x}"
         fam = fams[(d // 2) % len(fams)]
-        ds_rows.append({"dataset_id": did, "name": f"tallowmere-table-{d}", "task": task,
+        ds_rows.append({"dataset_id": did, "name": f"quillmarsh-table-{d}", "task": task,
                         "target": "target", "catalogue_version": CATALOGUE_VERSION,
                         "meta_features": json.dumps(fp.to_dict()["meta_features"]),
                         "warnings": "[]", "created_at": now})

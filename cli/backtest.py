@@ -2,15 +2,15 @@
 
 from __future__ import annotations
 
-import sys
 from pathlib import Path
 
 import click
 
-from cli.main import emit_json, fmt, handle_errors, json_option, kb_option, main, table
+from cli.common import family_option, handle_errors, json_option, kb_option, open_history
+from cli.output import emit_json, fmt, table
+from cli.progress import CountProgressBar
 from warmstart.backtest import DEFAULT_KS, backtest, plot_regret, verdict
 from warmstart.errors import BadInputError
-from warmstart.history import KnowledgeBase, resolve_path
 from warmstart.strategies import STRATEGIES
 
 
@@ -24,8 +24,8 @@ def _int_list(text: str, what: str) -> list[int]:
     return values
 
 
-@main.command("backtest")
-@click.option("--family", "-f", required=True, help="Model family (see 'warmstart families').")
+@click.command("backtest")
+@family_option
 @click.option("--ks", default=",".join(map(str, DEFAULT_KS)), show_default=True,
               help="List lengths to score, comma-separated.")
 @click.option("--strategies", default=None,
@@ -47,30 +47,19 @@ def backtest_cmd(family, ks, strategies, metric, random_repeats, seed, plot_file
     Regret 0 = the list found the held-out dataset's best known configuration,
     1 = no better than its median trial.
     """
-    kb = KnowledgeBase(resolve_path(kb_path))
+    kb = open_history(kb_path)
     names = [s.strip() for s in strategies.split(",")] if strategies else None
-    bar_holder: dict = {}
-
-    def progress(done: int, total: int) -> None:
-        if "bar" not in bar_holder:
-            bar_holder["bar"] = click.progressbar(length=total, label="held-out datasets",
-                                                  file=sys.stderr)
-            bar_holder["bar"].__enter__()
-        bar_holder["bar"].update(1)
-        if done == total:
-            bar_holder["bar"].__exit__(None, None, None)
-
     result = backtest(kb, family, _int_list(ks, "--ks"), names, metric=metric, seed=seed,
-                      random_repeats=random_repeats, progress=progress)
+                      random_repeats=random_repeats,
+                      progress=CountProgressBar("held-out datasets"))
     if plot_file is not None:
         plot_regret(result, plot_file)
     if as_json:
         emit_json(result.to_dict())
         return
-    n = result.per_dataset["dataset_id"].nunique()
     metrics = ", ".join(f"{t}: {m}" for t, m in result.metrics.items())
-    click.echo(f"backtest of {result.family} over {n} held-out datasets ({metrics}); "
-               "normalised regret, lower is better")
+    click.echo(f"backtest of {result.family} over {result.n_held_out} held-out datasets "
+               f"({metrics}); normalised regret, lower is better")
     rows = []
     for r in result.summary():
         rows.append([r["strategy"], r["k"], r["mean_regret"], r["std_regret"],

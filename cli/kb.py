@@ -7,12 +7,13 @@ from pathlib import Path
 
 import click
 
-from cli.main import emit_json, handle_errors, json_option, kb_option, main, table
+from cli.common import handle_errors, json_option, kb_option, open_history
+from cli.output import emit_json, table
 from warmstart.history import KnowledgeBase, resolve_path
 
 
 # -- kb ---------------------------------------------------------------------------------
-@main.group("kb")
+@click.group("kb")
 def kb_group() -> None:
     """Create and inspect the team history."""
 
@@ -36,7 +37,7 @@ def kb_init_cmd(path, as_json) -> None:
 @handle_errors
 def kb_info_cmd(kb_path, as_json) -> None:
     """Counts per family and metric, fingerprints per catalogue version, size on disk."""
-    info = KnowledgeBase(resolve_path(kb_path)).info()
+    info = open_history(kb_path).info()
     if as_json:
         emit_json(info)
         return
@@ -64,8 +65,7 @@ def kb_info_cmd(kb_path, as_json) -> None:
 @handle_errors
 def kb_check_cmd(kb_path, repair, grace_seconds, as_json) -> None:
     """Verify the history's integrity (exit code 1 when a problem remains)."""
-    report = KnowledgeBase(resolve_path(kb_path)).check(repair=repair,
-                                                        grace_seconds=grace_seconds)
+    report = open_history(kb_path).check(repair=repair, grace_seconds=grace_seconds)
     if as_json:
         emit_json(report.to_dict())
     else:
@@ -89,7 +89,7 @@ def kb_check_cmd(kb_path, repair, grace_seconds, as_json) -> None:
 @handle_errors
 def kb_compact_cmd(kb_path, as_json) -> None:
     """Merge each table's many small files into one (content unchanged)."""
-    out = KnowledgeBase(resolve_path(kb_path)).compact()
+    out = open_history(kb_path).compact()
     if as_json:
         emit_json(out)
         return
@@ -110,7 +110,7 @@ def kb_compact_cmd(kb_path, as_json) -> None:
 @handle_errors
 def kb_export_cmd(file, kb_path, as_json) -> None:
     """Write the whole history to one portable FILE (a ZIP of three Parquet tables)."""
-    out = KnowledgeBase(resolve_path(kb_path)).export(file)
+    out = open_history(kb_path).export(file)
     if as_json:
         emit_json(out)
         return
@@ -125,7 +125,7 @@ def kb_export_cmd(file, kb_path, as_json) -> None:
 @handle_errors
 def kb_import_cmd(file, kb_path, as_json) -> None:
     """Merge another team's exported FILE; studies already present are skipped."""
-    out = KnowledgeBase(resolve_path(kb_path)).import_(file)
+    out = open_history(kb_path).import_(file)
     if as_json:
         emit_json(out)
         return

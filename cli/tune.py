@@ -7,18 +7,24 @@ from pathlib import Path
 
 import click
 
-from cli.main import TASK, emit_json, fmt, handle_errors, json_option, kb_option, main, table
-from warmstart.errors import BadInputError
-from warmstart.history import KnowledgeBase, resolve_path
-from warmstart.tune import SEARCHES, ProgressBar, tune
+from cli.common import (
+    EXIT_INTERRUPTED,
+    TASK,
+    family_option,
+    handle_errors,
+    json_option,
+    kb_option,
+)
+from cli.output import emit_json, fmt, table
+from cli.progress import PROGRESS_ENV, TrialProgressBar
+from warmstart.history import resolve_path
+from warmstart.tune import GP_EI, SEARCHES, TuneResult, tune
 
-EXIT_INTERRUPTED = 130  # 128 + SIGINT, what shells report for Ctrl-C
 
-
-@main.command("tune")
+@click.command("tune")
 @click.argument("data", type=click.Path(path_type=Path))
 @click.option("--target", "-t", required=True, help="Target column.")
-@click.option("--family", "-f", required=True, help="Model family (see 'warmstart families').")
+@family_option
 @click.option("--budget", "-n", required=True, type=int,
               help="Trials to run (warm start included).")
 @click.option("--metric", default=None,
@@ -29,7 +35,7 @@ EXIT_INTERRUPTED = 130  # 128 + SIGINT, what shells report for Ctrl-C
               help="Folds fitted in parallel (-1: all cores).")
 @click.option("--time-limit", type=float, default=None,
               help="Seconds; no new trial starts after this.")
-@click.option("--search", type=click.Choice(SEARCHES), default="bayes", show_default=True,
+@click.option("--search", type=click.Choice(SEARCHES), default=GP_EI, show_default=True,
               help="What proposes trials after the warm start.")
 @click.option("--warm-start", "warm_start", type=int, default=None,
               help="Suggestions to evaluate first [default: min(5, budget // 2)].")
@@ -44,7 +50,7 @@ EXIT_INTERRUPTED = 130  # 128 + SIGINT, what shells report for Ctrl-C
 @click.option("--task", type=TASK, default=None, help="Override the inferred task.")
 @click.option("--progress/--no-progress", default=None,
               help="Progress bar on stderr [default: when stderr is a terminal, or "
-                   "WARMSTART_PROGRESS=1].")
+                   f"{PROGRESS_ENV}=1].")
 @kb_option
 @json_option
 @handle_errors
@@ -53,47 +59,45 @@ def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, s
              as_json) -> None:
     """Tune FAMILY on DATA: warm-start suggestions first, then Bayesian optimisation."""
     path = resolve_path(kb_path)
+    bar = TrialProgressBar(budget, stream=sys.stderr, enabled=progress)
     try:
-        kb = KnowledgeBase(path)
-    except BadInputError:
-        if not no_log:
-            raise
-        kb = None  # --no-log works without a history: a cold start
-    bar = ProgressBar(budget, stream=sys.stderr, enabled=progress)
-    try:
+        # without --no-log a missing history is an error; with it, a cold start
         result = tune(data, target=target, family=family, budget=budget, metric=metric, cv=cv,
-                      seed=seed, jobs=jobs, time_limit=time_limit, search=search, kb=kb,
+                      seed=seed, jobs=jobs, time_limit=time_limit, search=search, kb=path,
                       log=not no_log, task=task, out=out, name=name, warm_start=warm_start,
-                      space=space_file, strategy=strategy,
-                      progress=bar)
+                      space=space_file, strategy=strategy, progress=bar)
     finally:
         bar.close()
     if as_json:
         emit_json(result.to_dict())
     else:
-        for note in result.notes:
-            click.echo(note)
-        rows = [[i, t.index + 1, t.origin, t.score, t.fold_sd, t.fit_seconds, t.status,
-                 t.error if t.error else fmt(t.config)]
-                for i, t in enumerate(result.ranked(), 1)]
-        click.echo(table(rows, ["rank", "trial", "from", result.metric, "fold sd", "fit s",
-                                "status", "configuration / error"], align="rrlrrrll"))
-        ok = sum(t.status == "ok" for t in result.trials)
-        click.echo(f"{len(result.trials)} trials ({ok} ok) in {result.seconds:.1f} s, "
-                   f"{result.cv}-fold CV on {result.rows} rows; stopped: {result.stopped}")
-        best = result.best
-        if best is not None:
-            click.echo(f"best: trial {best.index + 1}, {result.metric} {fmt(best.score)}: "
-                       f"{fmt(best.config)}")
-        if result.logged is not None:
-            lg = result.logged
-            click.echo(f"logged study {lg.study_id[:12]} into {path} "
-                       f"({'new dataset' if lg.dataset_is_new else 'known dataset'} "
-                       f"{lg.dataset_id} '{lg.label}')")
-        if out is not None and best is not None:
-            click.echo(f"best configuration written to {out}")
-        click.echo("The scores above were used to choose the configuration: validate the "
-                   "final model on held-out data.")
+        _echo_result(result, path, out)
     if result.interrupted:
         click.echo("interrupted: the finished trials were kept", err=True)
         sys.exit(EXIT_INTERRUPTED)
+
+
+def _echo_result(result: TuneResult, path: Path, out: Path | None) -> None:
+    """The notes, the trials best first, the best configuration and what was written."""
+    for note in result.notes:
+        click.echo(note)
+    rows = [[i, t.index + 1, t.origin, t.score, t.fold_sd, t.fit_seconds, t.status,
+             t.error if t.error else fmt(t.config)]
+            for i, t in enumerate(result.ranked(), 1)]
+    click.echo(table(rows, ["rank", "trial", "from", result.metric, "fold sd", "fit s",
+                            "status", "configuration / error"], align="rrlrrrll"))
+    click.echo(f"{len(result.trials)} trials ({result.n_ok} ok) in {result.seconds:.1f} s, "
+               f"{result.cv}-fold CV on {result.rows} rows; stopped: {result.stopped}")
+    best = result.best
+    if best is not None:
+        click.echo(f"best: trial {best.index + 1}, {result.metric} {fmt(best.score)}: "
+                   f"{fmt(best.config)}")
+    if result.logged is not None:
+        lg = result.logged
+        click.echo(f"logged study {lg.study_id[:12]} into {path} "
+                   f"({'new dataset' if lg.dataset_is_new else 'known dataset'} "
+                   f"{lg.dataset_id} '{lg.label}')")
+    if out is not None and best is not None:
+        click.echo(f"best configuration written to {out}")
+    click.echo("The scores above were used to choose the configuration: validate the "
+               "final model on held-out data.")

@@ -1,6 +1,6 @@
-"""Build the shipped demo history of the invented retailer Tallowmere Supply Co.
+"""Build the shipped demo history of the invented retailer Quillmarsh Provisions
 
-Tallowmere Supply Co. is an invented home-goods retailer (candles, cookware, bedding,
+Quillmarsh Provisions is an invented home-goods retailer (candles, cookware, bedding,
 storage, garden goods); its analytics team tunes models on one table after another.
 Every dataset here is simulated from a small generating model with interactions,
 skewed columns, missing values and noise, so tuning matters and different model
@@ -18,7 +18,7 @@ Usage::
 
 ``--only`` rebuilds just the named datasets and copies every other study of the
 existing history at ``--out`` unchanged. The script also writes the example dataset
-``examples/tallowmere_loyalty_churn.csv`` (not in the history) and its trials file.
+``examples/quillmarsh_loyalty_churn.csv`` (not in the history) and its trials file.
 """
 
 from __future__ import annotations
@@ -52,7 +52,7 @@ EXAMPLES = Path(__file__).resolve().parent
 BASE_SEED = 20240611
 N_TRIALS = 11
 N_FOLDS = 3
-LABEL_PREFIX = "tallowmere-"
+LABEL_PREFIX = "quillmarsh-"
 CLS, REG = "classification", "regression"
 HGB, RF, KNN, LIN = "hist_gradient_boosting", "random_forest", "knn", "linear"
 
@@ -974,7 +974,7 @@ def write_examples(directory: Path = EXAMPLES) -> None:
     """Write the example dataset and a trials file of real runs on it (plus one trial
     the analyst stopped, to show how a failed trial is recorded)."""
     df = example_churn()
-    df.to_csv(directory / "tallowmere_loyalty_churn.csv", index=False)
+    df.to_csv(directory / "quillmarsh_loyalty_churn.csv", index=False)
     rows = run_trials(df, EXAMPLE_TARGET, CLS, HGB, EXAMPLE_CONFIGS,
                       seed=seed_for("cv", "example"))
     rows.append({"learning_rate": 0.005, "max_iter": 1000, "max_leaf_nodes": 256,
@@ -982,7 +982,7 @@ def write_examples(directory: Path = EXAMPLES) -> None:
                  "error": "stopped by the analyst: over the 10-minute budget"})
     trials = pd.DataFrame(rows)
     trials["fit_seconds"] = trials["fit_seconds"].round(3)
-    trials.to_csv(directory / "tallowmere_loyalty_churn_trials.csv", index=False)
+    trials.to_csv(directory / "quillmarsh_loyalty_churn_trials.csv", index=False)
 
 
 def main(argv: list[str] | None = None) -> int:

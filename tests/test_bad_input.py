@@ -99,7 +99,8 @@ CASES = [  # id, builder(w) -> CLI args, substring the error must contain
      lambda w: w.log(w.write("r.parquet", np.random.default_rng(0).bytes(512))),
      "not a Parquet file"),
     ("data file missing", lambda w: w.log(w.root / "absent.csv"), "file not found"),
-    ("data path is a directory", lambda w: w.log(w.root), "expected a file"),
+    ("data path is a directory of other files", lambda w: w.log(w.root),
+     "a data directory holds only Parquet files"),
     ("ragged CSV rows", lambda w: w.log(w.write("g.csv", "a,target\n1,0\n2,1,7,8\n3,0\n")),
      "could not read"),
     # the trials table

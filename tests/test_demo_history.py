@@ -30,8 +30,8 @@ from warmstart.trials import validate_trials
 
 ROOT = Path(__file__).resolve().parent.parent
 KB_PATH = ROOT / "knowledge_base"
-EXAMPLE_CSV = ROOT / "examples" / "tallowmere_loyalty_churn.csv"
-EXAMPLE_TRIALS = ROOT / "examples" / "tallowmere_loyalty_churn_trials.csv"
+EXAMPLE_CSV = ROOT / "examples" / "quillmarsh_loyalty_churn.csv"
+EXAMPLE_TRIALS = ROOT / "examples" / "quillmarsh_loyalty_churn_trials.csv"
 STALE = "demo history is stale: run python examples/make_demo_history.py"
 
 

@@ -45,7 +45,7 @@ def number_forms(x: float) -> list[bytes]:
 
 def test_logged_history_holds_no_planted_value(tmp_path: Path):
     kb = KnowledgeBase.init(tmp_path / "kb")
-    data = tmp_path / "tallowmere_customers.csv"
+    data = tmp_path / "quillmarsh_customers.csv"
     dataset().to_csv(data, index=False)
     trials = tmp_path / "trials.csv"
     trials.write_text("n_estimators,max_depth,score\n100,4,0.61\n300,,0.64\n")

@@ -31,7 +31,7 @@ def test_same_seed_same_trials_in_same_order():
             for _ in range(2)]
     a, b = ([(t.config, t.score, t.origin) for t in r.trials] for r in runs)
     assert a == b and len(a) == 6
-    assert [t.origin for t in runs[0].trials][:4] == ["defaults", "random", "random", "bayes"]
+    assert [t.origin for t in runs[0].trials][:4] == ["defaults", "random", "random", "gp-ei"]
     other = tune(iris(), target="target", family="knn", budget=4, cv=3, seed=5,
                  search="random")
     assert [t.config for t in other.trials][1:] != [c for c, _, _ in a][1:4]
@@ -178,3 +178,21 @@ def test_plain_random_search_skips_the_defaults():
     assert [t.origin for t in a.trials] == ["random"] * 3
     assert b.trials[0].origin == "defaults"
     assert [t.config for t in b.trials[1:]] == [t.config for t in a.trials]
+
+
+def test_progress_callback_gets_each_finished_trial_in_order():
+    seen = []
+    result = tune(iris(), target="target", family="knn", budget=4, cv=2, seed=1,
+                  progress=seen.append)
+    assert seen == result.trials and [t.index for t in seen] == [0, 1, 2, 3]
+    assert result.n_ok == sum(t.score is not None for t in seen) == 4
+
+
+def test_unlogged_study_needs_no_history(tmp_path):
+    missing = tmp_path / "no-history-here"
+    result = tune(iris(), target="target", family="linear", budget=2, cv=2, kb=missing,
+                  log=False)
+    assert result.notes == ["no history: starting cold"] and result.logged is None
+    assert not missing.exists()
+    with pytest.raises(BadInputError, match="not a warmstart history"):
+        tune(iris(), target="target", family="linear", budget=2, cv=2, kb=missing)

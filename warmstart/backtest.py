@@ -87,6 +87,11 @@ class BacktestResult:
     lookups: dict[str, dict[str, int]]
     skipped: list[str] = field(default_factory=list)
 
+    @property
+    def n_held_out(self) -> int:
+        """How many datasets were held out and scored."""
+        return int(self.per_dataset["dataset_id"].nunique())
+
     def regrets(self, strategy: str, k: int) -> np.ndarray:
         """Per-dataset regrets of one strategy at one k, shape (n_datasets,)."""
         d = self.per_dataset
@@ -142,7 +147,7 @@ def verdict(result: BacktestResult, k: int = 5) -> list[str]:
         if mean.empty:
             continue
         order = mean.sort_values(kind="stable")
-        win, line = order.index[0], f"{result.family} {task}: {order.index[0]} wins at k={k}"
+        line = f"{result.family} {task}: {order.index[0]} wins at k={k}"
         line += f" (mean regret {order.iloc[0]:.3f}"
         if len(order) > 1:
             line += f"; {order.iloc[1] - order.iloc[0]:.3f} below {order.index[1]}"

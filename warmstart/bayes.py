@@ -12,6 +12,8 @@ continuous optimum ever needs rounding back.
 
 Scores are "greater is better" (scikit-learn's scorer convention). Failed trials take
 the worst score observed, which steers the search away from where estimators raise.
+
+This is the ``"gp-ei"`` search of :func:`warmstart.tune.tune` (``tune --search gp-ei``).
 """
 
 from __future__ import annotations

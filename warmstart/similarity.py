@@ -14,6 +14,7 @@ fingerprints are at distance 0. Similarity is ``1 / (1 + distance)``.
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass
 
@@ -76,7 +77,9 @@ def fit_scaler(X: np.ndarray, names: list[str]) -> Scaler:
     Xl = np.array(X, dtype=float, copy=True)
     with np.errstate(invalid="ignore"):
         Xl[:, log_mask] = np.sign(Xl[:, log_mask]) * np.log1p(np.abs(Xl[:, log_mask]))
-    with np.errstate(all="ignore"), _quiet():
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        # a column nobody defines is all NaN: numpy warns, the fallbacks below handle it
+        warnings.simplefilter("ignore", RuntimeWarning)
         center = np.nanmedian(Xl, axis=0)
         q1, q3 = np.nanquantile(Xl, [0.25, 0.75], axis=0)
         std = np.nanstd(Xl, axis=0)
@@ -85,20 +88,6 @@ def fit_scaler(X: np.ndarray, names: list[str]) -> Scaler:
                      np.where(np.isfinite(std) & (std > 1e-12), std, 1.0))
     center = np.where(np.isfinite(center), center, 0.0)
     return Scaler(names, center, scale, log_mask)
-
-
-class _quiet:
-    """Silence numpy's 'all-NaN slice' RuntimeWarnings for columns nobody defines."""
-
-    def __enter__(self):
-        import warnings
-
-        self._ctx = warnings.catch_warnings()
-        self._ctx.__enter__()
-        warnings.simplefilter("ignore", RuntimeWarning)
-
-    def __exit__(self, *exc):
-        return self._ctx.__exit__(*exc)
 
 
 def scaled_differences(query: np.ndarray, others: np.ndarray) -> np.ndarray:

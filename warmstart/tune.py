@@ -2,8 +2,12 @@
 
 :func:`tune` first evaluates the history's suggestions for the dataset (the nearest
 past datasets' best configurations, see :meth:`KnowledgeBase.suggest`), then spends the
-rest of the budget on Bayesian optimisation (:mod:`warmstart.bayes`) started from those
-trials, or on seeded random search, and logs the study into the history.
+rest of the budget on Gaussian-process expected improvement (``"gp-ei"``,
+:mod:`warmstart.bayes`) started from those trials, or on seeded random search, and logs
+the study into the history. Its steps are small functions, in order: argument checks,
+the folds, the warm-start queue, the trial loop (:class:`_Proposer` then
+:func:`_evaluate`) and logging. Progress goes to a plain callback; drawing it is the
+caller's business.
 
 Each trial is a cross-validated score (``sklearn.model_selection.cross_validate`` with
 the scorer's name; stratified folds for classification, plain folds for regression,
@@ -22,13 +26,12 @@ from __future__ import annotations
 
 import json
 import os
-import sys
 import time
 import warnings
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, TextIO
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -38,8 +41,8 @@ from threadpoolctl import threadpool_limits
 
 from warmstart.bayes import BayesianOptimizer, random_config
 from warmstart.errors import BadInputError, NothingToSuggestError
-from warmstart.families import get_family
-from warmstart.fingerprint import fingerprint, load_frame
+from warmstart.families import Family, get_family
+from warmstart.fingerprint import Fingerprint, fingerprint, load_frame
 from warmstart.history import KnowledgeBase, LoggedStudy
 from warmstart.metrics import DEFAULT_METRIC, resolve_metric
 from warmstart.pipelines import make_pipeline
@@ -48,10 +51,11 @@ from warmstart.storage import write_bytes_atomic
 from warmstart.strategies import user_space
 from warmstart.trials import FAILED, OK
 
-SEARCHES = ("bayes", "random")
-WARM, DEFAULTS, BAYES, RANDOM = "warm-start", "defaults", "bayes", "random"
+# The search is named for its method: Gaussian-process expected improvement.
+GP_EI, RANDOM = "gp-ei", "random"
+SEARCHES = (GP_EI, RANDOM)
+WARM, DEFAULTS = "warm-start", "defaults"
 MAX_WARM_START = 5
-PROGRESS_ENV = "WARMSTART_PROGRESS"
 STOP_BUDGET, STOP_TIME, STOP_INTERRUPT = "budget", "time limit", "interrupted"
 
 
@@ -62,9 +66,9 @@ class TuneTrial:
     ``score`` is the mean cross-validated score (None when the trial failed);
     ``fold_scores`` the per-fold scores; ``origin`` says what proposed it:
     ``"warm-start"`` (a suggestion from the history), ``"defaults"`` (the family's
-    defaults, the first trial of a cold study), ``"bayes"`` (expected improvement) or
-    ``"random"`` (random search, and the first draws of Bayesian optimisation before
-    its surrogate has enough trials). ``index`` counts from 0 in running order.
+    defaults, the first trial of a cold study), ``"gp-ei"`` (Gaussian-process expected
+    improvement) or ``"random"`` (random search, and the first draws of the ``"gp-ei"``
+    search before its surrogate has enough trials). ``index`` counts from 0 in running order.
     """
 
     index: int
@@ -110,6 +114,11 @@ class TuneResult:
         return self.stopped == STOP_INTERRUPT
 
     @property
+    def n_ok(self) -> int:
+        """Trials that finished with a score."""
+        return sum(t.status == OK for t in self.trials)
+
+    @property
     def best(self) -> TuneTrial | None:
         ranked = self.ranked()
         return ranked[0] if ranked and ranked[0].status == OK else None
@@ -140,55 +149,9 @@ class TuneResult:
         }
 
 
-class ProgressBar:
-    """A one-line progress bar with the best score so far, redrawn in place.
-
-    Parameters
-    ----------
-    budget : int
-        Trials planned.
-    stream : text stream, optional
-        Where to draw; defaults to standard error.
-    enabled : bool, optional
-        Draw or not; by default only when ``stream`` is a terminal or the environment
-        variable ``WARMSTART_PROGRESS`` is ``1`` (which lets tests and logs force it).
-    """
-
-    def __init__(self, budget: int, stream: TextIO | None = None, enabled: bool | None = None,
-                 width: int = 24):
-        self.budget, self.width = budget, width
-        self.stream = stream if stream is not None else sys.stderr
-        if enabled is None:
-            enabled = os.environ.get(PROGRESS_ENV) == "1" or bool(
-                getattr(self.stream, "isatty", lambda: False)())
-        self.enabled = enabled
-        self.start = time.monotonic()
-        self.best: float | None = None
-        self.drawn = False
-
-    def __call__(self, trial: TuneTrial) -> None:
-        if not self.enabled:
-            return
-        if trial.status == OK and (self.best is None or trial.score > self.best):
-            self.best = trial.score
-        done = trial.index + 1
-        filled = int(round(self.width * min(done, self.budget) / max(1, self.budget)))
-        best = "-" if self.best is None else f"{self.best:.4g}"
-        line = (f"\r[{'#' * filled}{'.' * (self.width - filled)}] {done}/{self.budget} "
-                f"best {best}  {time.monotonic() - self.start:.0f}s ")
-        self.stream.write(line)
-        self.stream.flush()
-        self.drawn = True
-
-    def close(self) -> None:
-        if self.drawn:
-            self.stream.write("\n")
-            self.stream.flush()
-
-
 def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, budget: int,
          metric: str | None = None, cv: int = 5, seed: int = 0, jobs: int = 1,
-         time_limit: float | None = None, search: str = "bayes",
+         time_limit: float | None = None, search: str = GP_EI,
          kb: KnowledgeBase | str | os.PathLike | None = None, log: bool = True,
          task: str | None = None, out: str | os.PathLike | None = None,
          name: str | None = None, warm_start: int | None = None,
@@ -218,11 +181,13 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         Folds fitted in parallel (``n_jobs`` of ``cross_validate``; -1 = all cores).
     time_limit : float, optional
         Seconds; no new trial starts once it has passed (a running one finishes).
-    search : {"bayes", "random"}
-        What proposes trials after the warm start.
+    search : {"gp-ei", "random"}
+        What proposes trials after the warm start: Gaussian-process expected
+        improvement (:mod:`warmstart.bayes`) or seeded random search.
     kb : KnowledgeBase or path, optional
         The history to take suggestions from and to log into. Without one the study
-        starts cold and is not logged.
+        starts cold and is not logged; so does a study with ``log=False`` whose path
+        holds no usable history.
     log : bool
         Log the study (``source="tune"``) into ``kb``. Interrupted and time-limited
         studies are logged too, with the trials that finished.
@@ -247,7 +212,8 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         The history's ranking strategy for the suggestions (see
         :data:`warmstart.strategies.STRATEGIES`); the history's default otherwise.
     progress : callable, optional
-        Called with each finished :class:`TuneTrial` (e.g. a :class:`ProgressBar`).
+        Called with each finished :class:`TuneTrial`, in running order (the command
+        line draws a progress bar with it).
 
     Returns
     -------
@@ -255,6 +221,47 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         ``stopped`` is ``"budget"``, ``"time limit"`` or ``"interrupted"`` (Ctrl-C:
         the finished trials are still logged, the caller decides how to exit).
     """
+    kb = _open_history(kb, log)
+    fam = _check_arguments(family, budget, cv, jobs, time_limit, search, warm_start)
+    if log and kb is not None:
+        kb._check_writable()
+    df, fp, scoring = _load(data, target, task, metric)
+    space = fam.space(fp.task) if space is None else user_space(space, fam, fp.task)
+    notes: list[str] = []
+    folds = _folds(df, target, fam, fp.task, scoring, cv, seed, jobs, notes)
+    queue, queue_origin = _warm_queue(kb, fp, fam.name, space, budget, warm_start, scoring,
+                                      seed, strategy, defaults_first, notes)
+    result = TuneResult(fam.name, fp.task, scoring, str(target), len(folds.y), cv, seed,
+                        search, budget, notes=notes)
+    proposer = _Proposer(space, search, queue, queue_origin, seed)
+    _run_trials(result, proposer, folds, time_limit, progress)
+    if log and kb is not None and result.trials:
+        label = name or (Path(data).stem if isinstance(data, (str, os.PathLike)) else None)
+        result.logged = _log_study(kb, result, df, fp, label)
+    if out is not None and result.best is not None:
+        write_bytes_atomic(json.dumps(result.best_config(), indent=2).encode() + b"\n",
+                           Path(out))
+    return result
+
+
+# -- argument checks ----------------------------------------------------------------------
+def _open_history(kb: KnowledgeBase | str | os.PathLike | None,
+                  log: bool) -> KnowledgeBase | None:
+    """The history at ``kb``; None when there is none and the study is not to be logged
+    (a study that writes nothing needs no history: it starts cold)."""
+    if not isinstance(kb, (str, os.PathLike)):
+        return kb
+    try:
+        return KnowledgeBase(kb)
+    except BadInputError:
+        if log:
+            raise
+        return None
+
+
+def _check_arguments(family: str, budget: Any, cv: Any, jobs: Any, time_limit: Any,
+                     search: Any, warm_start: Any) -> Family:
+    """Refuse unusable settings before any data is read; return the family."""
     fam = get_family(family)
     _check_int("budget", budget, 1)
     _check_int("cv", cv, 2)
@@ -266,25 +273,54 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         raise BadInputError(f"search must be one of {', '.join(SEARCHES)}, not {search!r}")
     if warm_start is not None:
         _check_int("warm_start", warm_start, 0)
-    if isinstance(kb, (str, os.PathLike)):
-        kb = KnowledgeBase(kb)
-    if log and kb is not None:
-        kb._check_writable()
+    return fam
 
+
+def _check_int(what: str, value: Any, low: int) -> None:
+    if not isinstance(value, (int, np.integer)) or isinstance(value, bool) or value < low:
+        raise BadInputError(f"{what} must be an integer >= {low}, not {value!r}")
+
+
+def _load(data: pd.DataFrame | str | os.PathLike, target: str, task: str | None,
+          metric: str | None) -> tuple[pd.DataFrame, Fingerprint, str]:
+    """The table, its fingerprint (which validates the table and the target) and the
+    scorer name the trials are scored with."""
     df = load_frame(data)
     if target not in df.columns:
         raise BadInputError(f"target column {target!r} not found; columns are: "
                             f"{', '.join(map(str, df.columns[:20]))}")
-    fp = fingerprint(df, target=target, task=task)  # validates the table and the target
-    task = fp.task
-    metric_name = metric or DEFAULT_METRIC[task]
+    fp = fingerprint(df, target=target, task=task)
+    metric_name = metric or DEFAULT_METRIC[fp.task]
     if metric_name not in get_scorer_names():
         raise BadInputError(f"metric {metric_name!r} is not a scikit-learn scorer name "
                             "(tune computes the score itself)")
-    metric_obj = resolve_metric(metric_name)
-    space = fam.space(task) if space is None else user_space(space, fam, task)
-    notes: list[str] = []
+    return df, fp, resolve_metric(metric_name).name
 
+
+# -- folds --------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class _Folds:
+    """What every trial of a study shares: the labelled rows, the splitter, the scorer."""
+
+    family: Family
+    task: str
+    X: pd.DataFrame
+    y: pd.Series
+    splitter: KFold | StratifiedKFold
+    scoring: str
+    seed: int
+    jobs: int
+
+    @property
+    def train_rows(self) -> float:
+        """Mean rows of a training fold (scales a fold's fit time to all rows)."""
+        cv = self.splitter.get_n_splits()
+        return len(self.y) * (cv - 1) / cv
+
+
+def _folds(df: pd.DataFrame, target: str, fam: Family, task: str, scoring: str, cv: int,
+           seed: int, jobs: int, notes: list[str]) -> _Folds:
+    """Labelled rows and seeded, shuffled folds: stratified for classification."""
     labelled = df[df[target].notna()]
     if len(labelled) < len(df):
         notes.append(f"{len(df) - len(labelled)} rows with a missing target left out")
@@ -295,26 +331,32 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         if smallest < cv:
             raise BadInputError(f"the smallest class has {smallest} rows, fewer than the "
                                 f"{cv} folds; lower --cv")
-        folds = StratifiedKFold(n_splits=cv, shuffle=True, random_state=seed)
+        splitter: KFold | StratifiedKFold = StratifiedKFold(n_splits=cv, shuffle=True,
+                                                            random_state=seed)
     else:
         y = pd.to_numeric(y, errors="coerce")
         if len(y) < cv:
             raise BadInputError(f"{len(y)} labelled rows cannot make {cv} folds")
-        folds = KFold(n_splits=cv, shuffle=True, random_state=seed)
-    train_rows = len(y) * (cv - 1) / cv
+        splitter = KFold(n_splits=cv, shuffle=True, random_state=seed)
+    return _Folds(fam, task, X, y, splitter, scoring, seed, jobs)
 
-    # -- the warm start ---------------------------------------------------------------
+
+# -- the warm-start queue and the search --------------------------------------------------
+def _warm_queue(kb: KnowledgeBase | None, fp: Fingerprint, family: str, space: SearchSpace,
+                budget: int, warm_start: int | None, scoring: str, seed: int,
+                strategy: str | None, defaults_first: bool,
+                notes: list[str]) -> tuple[list[dict[str, Any]], str]:
+    """The configurations to run first and their origin: the history's suggestions, else
+    (a cold study) the family's defaults, else nothing."""
     n_warm = min(MAX_WARM_START, max(1, budget // 2)) if warm_start is None else warm_start
     n_warm = min(n_warm, budget)
     queue: list[dict[str, Any]] = []
-    queue_origin = WARM
     if kb is None:
         notes.append("no history: starting cold")
     elif n_warm > 0:
         try:
-            found = kb.suggest(fingerprint_of=fp, family=fam.name, k=n_warm,
-                               metric=metric_name, seed=seed, space=space,
-                               strategy=strategy)
+            found = kb.suggest(fingerprint_of=fp, family=family, k=n_warm, metric=scoring,
+                               seed=seed, space=space, strategy=strategy)
             queue = [space.validate(s.config) for s in found]
             notes.append(f"warm start: {len(queue)} configurations from the history's "
                          f"nearest datasets")
@@ -322,33 +364,49 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
             notes.append(f"starting cold: {exc}")
     if not queue and defaults_first:
         # A cold study starts where a user without a history would: the defaults.
-        queue = [_defaults_within(space)]
-        queue_origin = DEFAULTS
+        return [_defaults_within(space)], DEFAULTS
+    return queue, WARM
 
-    result = TuneResult(fam.name, task, metric_obj.name, str(target), len(y), cv, seed,
-                        search, budget, notes=notes)
-    optimizer = BayesianOptimizer(space, seed=seed)
-    rng = np.random.default_rng(seed)
+
+class _Proposer:
+    """Where the next trial comes from: the queue first (skipping configurations already
+    run), then Gaussian-process expected improvement or seeded random search."""
+
+    def __init__(self, space: SearchSpace, search: str, queue: list[dict[str, Any]],
+                 queue_origin: str, seed: int):
+        self.space, self.search = space, search
+        self.queue, self.queue_origin = list(queue), queue_origin
+        self.optimizer = BayesianOptimizer(space, seed=seed)
+        self.rng = np.random.default_rng(seed)
+
+    def next(self, trials: list[TuneTrial]) -> tuple[dict[str, Any], str]:
+        """The next configuration and its origin label, given the trials so far."""
+        seen = {config_key(t.config) for t in trials}
+        while self.queue and config_key(self.queue[0]) in seen:
+            self.queue.pop(0)
+        if self.queue:
+            return self.queue.pop(0), self.queue_origin
+        if self.search == GP_EI:
+            scores = [t.score for t in trials]
+            config = self.optimizer.propose([t.config for t in trials], scores)
+            return config, GP_EI if self.optimizer.uses_surrogate(scores) else RANDOM
+        return random_config(self.space, self.rng, seen), RANDOM
+
+
+def _run_trials(result: TuneResult, proposer: _Proposer, folds: _Folds,
+                time_limit: float | None,
+                progress: Callable[[TuneTrial], None] | None) -> None:
+    """Evaluate proposals into ``result.trials`` until the budget, the time limit or
+    Ctrl-C; set ``result.stopped`` and ``result.seconds``."""
     start = time.monotonic()
     try:
         with threadpool_limits(1):  # see the module docstring: one thread per fit
-            while len(result.trials) < budget:
+            while len(result.trials) < result.budget:
                 if time_limit is not None and time.monotonic() - start >= time_limit:
                     result.stopped = STOP_TIME
                     break
-                seen = {config_key(t.config) for t in result.trials}
-                while queue and config_key(queue[0]) in seen:
-                    queue.pop(0)
-                if queue:
-                    config, origin = queue.pop(0), queue_origin
-                elif search == BAYES:
-                    scores = [t.score for t in result.trials]
-                    config = optimizer.propose([t.config for t in result.trials], scores)
-                    origin = BAYES if optimizer.uses_surrogate(scores) else RANDOM
-                else:
-                    config, origin = random_config(space, rng, seen), RANDOM
-                trial = _evaluate(fam, task, config, X, y, folds, metric_obj.name, seed, jobs,
-                                  train_rows, len(result.trials), origin)
+                config, origin = proposer.next(result.trials)
+                trial = _evaluate(folds, config, len(result.trials), origin)
                 result.trials.append(trial)
                 if progress is not None:
                     progress(trial)
@@ -356,33 +414,21 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         result.stopped = STOP_INTERRUPT
     result.seconds = time.monotonic() - start
 
-    if log and kb is not None and result.trials:
-        label = name or (Path(data).stem if isinstance(data, (str, os.PathLike)) else None)
-        rows = [{**t.config, "score": t.score, "fit_seconds": t.fit_seconds,
-                 "status": t.status, "error": t.error} for t in result.trials]
-        result.logged = kb.log(df, target=target, family=fam.name, trials=rows,
-                               metric=metric_obj.name, name=label, fingerprint_of=fp,
-                               source="tune")
-    if out is not None and result.best is not None:
-        write_bytes_atomic(json.dumps(result.best_config(), indent=2).encode() + b"\n",
-                           Path(out))
-    return result
 
-
-def _evaluate(fam, task, config, X, y, folds, scoring, seed, jobs, train_rows, index,
-              origin) -> TuneTrial:
+def _evaluate(folds: _Folds, config: dict[str, Any], index: int, origin: str) -> TuneTrial:
     """Cross-validate one configuration; an exception makes a failed trial."""
     t0 = time.monotonic()
     try:
-        pipe = make_pipeline(fam, task, config, X, seed=seed)
+        pipe = make_pipeline(folds.family, folds.task, config, folds.X, seed=folds.seed)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # convergence chatter would break the table
-            res = cross_validate(pipe, X, y, cv=folds, scoring=scoring, n_jobs=jobs,
+            res = cross_validate(pipe, folds.X, folds.y, cv=folds.splitter,
+                                 scoring=folds.scoring, n_jobs=folds.jobs,
                                  error_score="raise")
         scores = [float(s) for s in res["test_score"]]
         if not all(np.isfinite(scores)):
             raise ValueError("the scorer returned a non-finite score")
-        fit = float(np.mean(res["fit_time"])) * len(y) / train_rows
+        fit = float(np.mean(res["fit_time"])) * len(folds.y) / folds.train_rows
         return TuneTrial(index, config, origin, OK, float(np.mean(scores)), scores, fit,
                          time.monotonic() - t0)
     except KeyboardInterrupt:
@@ -392,6 +438,16 @@ def _evaluate(fam, task, config, X, y, folds, scoring, seed, jobs, train_rows, i
         error = f"{type(exc).__name__}: {text[0] if text else ''}".strip()
         return TuneTrial(index, config, origin, FAILED, None, [], None,
                          time.monotonic() - t0, error[:500])
+
+
+# -- logging ------------------------------------------------------------------------------
+def _log_study(kb: KnowledgeBase, result: TuneResult, df: pd.DataFrame, fp: Fingerprint,
+               label: str | None) -> LoggedStudy:
+    """Log the finished trials as one study (``source="tune"``)."""
+    rows = [{**t.config, "score": t.score, "fit_seconds": t.fit_seconds,
+             "status": t.status, "error": t.error} for t in result.trials]
+    return kb.log(df, target=result.target, family=result.family, trials=rows,
+                  metric=result.metric, name=label, fingerprint_of=fp, source="tune")
 
 
 def _defaults_within(space: SearchSpace) -> dict[str, Any]:
@@ -404,9 +460,4 @@ def _defaults_within(space: SearchSpace) -> dict[str, Any]:
     return space.validate(space.clip(config))
 
 
-def _check_int(what: str, value: Any, low: int) -> None:
-    if not isinstance(value, (int, np.integer)) or isinstance(value, bool) or value < low:
-        raise BadInputError(f"{what} must be an integer >= {low}, not {value!r}")
-
-
-__all__ = ["SEARCHES", "ProgressBar", "TuneResult", "TuneTrial", "tune"]
+__all__ = ["GP_EI", "SEARCHES", "TuneResult", "TuneTrial", "tune"]

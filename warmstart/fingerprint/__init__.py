@@ -28,6 +28,7 @@ from warmstart.fingerprint.catalogue import (
 from warmstart.fingerprint.profile import (
     TASKS,
     DatasetProfile,
+    build_profile,
     infer_task,
     profile_frame,
     profile_table,
@@ -136,7 +137,8 @@ def _json_float(v: float) -> float | None:
 
 
 def load_frame(data: pd.DataFrame | str | os.PathLike) -> pd.DataFrame:
-    """Accept a DataFrame or a path to a CSV/Parquet/JSON-lines file."""
+    """Accept a DataFrame, a path to a CSV/Parquet/JSON-lines file or a directory of
+    Parquet files (see :func:`warmstart.io.open_directory`)."""
     if isinstance(data, pd.DataFrame):
         return data
     return read_table(data)
@@ -144,19 +146,26 @@ def load_frame(data: pd.DataFrame | str | os.PathLike) -> pd.DataFrame:
 
 def fingerprint(data: pd.DataFrame | str | os.PathLike, target: str,
                 task: str | None = None, *, sample_cap: int = SAMPLE_CAP,
-                batch_rows: int = BATCH_ROWS) -> Fingerprint:
+                batch_rows: int = BATCH_ROWS, cluster: Any = None) -> Fingerprint:
     """Compute a dataset's fingerprint.
 
     The table is read once: a Parquet file in record batches of ``batch_rows`` rows (its
     memory use does not grow with its length), a DataFrame cut into batches the same way
     (a frame and its Parquet file give the same fingerprint), a CSV or JSON-lines file
-    read whole first. Exact groups use every row; sample-based groups use a seeded sample
-    of ``sample_cap`` rows. The same table always gives the same fingerprint.
+    read whole first. A directory of Parquet files (hive-style ``key=value``
+    sub-directories become columns) is read file by file in batches, its files in sorted
+    path order. Exact groups use every row; sample-based groups use a seeded sample of
+    ``sample_cap`` rows. The same table always gives the same fingerprint.
+
+    A directory's ``dataset_hash`` depends on the set of rows only, not on their order
+    or on how they are split over files, so re-partitioned data keeps its hash; it
+    differs from the hash of the same rows in one file (see :mod:`.scan`).
 
     Parameters
     ----------
     data : DataFrame or path
-        The table (features and target), or a CSV / Parquet / JSON-lines file.
+        The table (features and target), a CSV / Parquet / JSON-lines file, or a
+        directory of Parquet files.
     target : str
         Name of the target column.
     task : {"classification", "regression"}, optional
@@ -165,14 +174,31 @@ def fingerprint(data: pd.DataFrame | str | os.PathLike, target: str,
         Rows in the sample used by sample-based meta-features.
     batch_rows : int, default 65536
         Rows per batch while reading.
+    cluster : str or dask.distributed.Client, optional
+        Scan on a dask cluster instead (a scheduler address, ``"local:N"`` for a local
+        cluster of N worker processes, or a Client; needs ``warmstart[cluster]``): one
+        task per part of a directory, one task for a single file; ``data`` must be a
+        path the workers can read. The result is identical to the single-process one.
+        See :mod:`warmstart.cluster`.
 
     Returns
     -------
     Fingerprint
         Its ``warnings`` say which dirty columns were found and what was done with them.
     """
-    profile = profile_table(data, target, task, sample_cap=sample_cap, batch_rows=batch_rows)
-    return fingerprint_profile(profile)
+    if cluster is None:
+        profile = profile_table(data, target, task, sample_cap=sample_cap,
+                                batch_rows=batch_rows)
+        return fingerprint_profile(profile)
+    from warmstart.cluster import scan_on_cluster  # dask is an optional dependency
+
+    if task is not None and task not in TASKS:
+        raise BadInputError(f"task must be 'classification' or 'regression', not {task!r}")
+    if sample_cap < 10 or batch_rows < 1:
+        raise BadInputError("sample_cap must be at least 10 and batch_rows at least 1")
+    s = scan_on_cluster(data, str(target), cluster, sample_cap=sample_cap,
+                        batch_rows=batch_rows)
+    return fingerprint_profile(build_profile(s, task))
 
 
 def fingerprint_profile(profile: DatasetProfile) -> Fingerprint:

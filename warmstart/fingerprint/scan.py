@@ -13,6 +13,24 @@ stays in cache). What is kept between batches is bounded (see :mod:`.sketches`):
   k-minimum-values distinct count), missingness patterns (up to ``PATTERN_CAP``), distinct
   rows (k-minimum-values over row hashes);
 * a seeded uniform sample of ``SAMPLE_CAP`` rows, for everything else.
+
+All of it lives in an :class:`Accumulator`. A directory of Parquet files is summarised
+part by part (:class:`warmstart.io.Part`), each part in its own accumulator, and the
+accumulators are merged in part order -- the same computation whether the parts run here
+or on the workers of a cluster, so both give bit-for-bit the same fingerprint.
+
+The sample does not depend on batching: row ``i`` of the whole table has the fixed
+priority ``mix64(i ^ seed)`` and the sample is the ``SAMPLE_CAP`` rows of smallest
+priority, so neither the batch size, nor the split into parts, nor the order in which
+parts are merged can change it.
+
+The table hash of a single file or frame is a SHA-256 over the row hashes in order. A
+directory's cannot be computed in order on many workers, so it is a SHA-256 of four
+64-bit sums of (differently) mixed row hashes, with the row count and the column names:
+it depends on which rows the table holds, not on their order nor on how they are split
+over files and row groups, so the same rows re-partitioned keep their hash. It differs
+from the hash of the same rows written as one file, whose hash is kept as it was so that
+histories logged before still recognise their datasets.
 """
 
 from __future__ import annotations
@@ -41,7 +59,15 @@ from warmstart.fingerprint.sketches import (
     sorted_distinct,
     unique_counts,
 )
-from warmstart.io import is_parquet, open_parquet, read_table
+from warmstart.io import (
+    ParquetDirectory,
+    Part,
+    is_parquet,
+    open_directory,
+    open_parquet,
+    part_batches,
+    read_table,
+)
 
 NUMBER, DATETIME, TEXT, UNSUPPORTED = "number", "datetime", "text", "unsupported"
 BATCH_ROWS = 65536
@@ -50,18 +76,27 @@ LEVEL_CAP = 4096
 PATTERN_CAP = 4096
 DISTINCT_K = 4096
 SEED = 20021
+SEQUENCE, ROW_SET = "sequence", "set"  # how an Accumulator hashes the table
+# Four keys for the row-set hash: 4 x 64 bits, so a SHA-256 digest is not wasted.
+_LANES = mix64(np.arange(1, 5, dtype=np.uint64) * np.uint64(0x9E3779B97F4A7C15))
 # Numbers as Arrow's string -> float64 cast reads them (decimal point, optional exponent).
 _NUMBER_RE = r"^\s*[-+]?([0-9]+(\.[0-9]*)?|\.[0-9]+)([eE][-+]?[0-9]+)?\s*$"
 
 
 @dataclass
 class Source:
-    """A table to scan: its Arrow schema, row count and a way to iterate its batches."""
+    """A table to scan: its Arrow schema, row count and a way to iterate its batches.
+
+    For a directory of Parquet files, ``directory`` holds its parts, which are read
+    ``batch_rows`` rows at a time.
+    """
 
     schema: pa.Schema
     n_rows: int
     batches: Callable[[], Iterator[pa.RecordBatch]]
     mixed: list[str] = field(default_factory=list)
+    directory: ParquetDirectory | None = None
+    batch_rows: int = BATCH_ROWS
 
 
 def frame_to_arrow(df: pd.DataFrame) -> tuple[pa.Table, list[str]]:
@@ -103,8 +138,13 @@ def _is_missing(v) -> bool:
 
 
 def source_of(data: pd.DataFrame | str | os.PathLike, batch_rows: int = BATCH_ROWS) -> Source:
-    """Wrap a DataFrame or a file (Parquet streamed; CSV / JSON lines read whole)."""
+    """Wrap a DataFrame, a file (Parquet streamed; CSV / JSON lines read whole) or a
+    directory of Parquet files (streamed part by part)."""
     if not isinstance(data, pd.DataFrame):
+        if os.path.isdir(data):
+            d = open_directory(data)
+            return Source(d.schema, d.n_rows, lambda: d.batches(batch_rows), [], d,
+                          batch_rows)
         if is_parquet(data):
             schema, n_rows, batches = open_parquet(data, batch_rows)
             return Source(schema, n_rows, batches)
@@ -285,129 +325,276 @@ class Scan:
         return len(self.number_cols) + self.text_cols.index(col)
 
 
-def scan(source: Source, target: str, sample_cap: int = SAMPLE_CAP) -> Scan:
-    """Read every batch of ``source`` once and summarise it (see :class:`Scan`)."""
-    names = list(source.schema.names)
-    if len(set(names)) != len(names):
-        raise BadInputError("the table has duplicate column names")
-    if target not in names:
-        cols = ", ".join(names[:20])
-        raise BadInputError(f"target column {target!r} not found; columns are: {cols}")
-    kinds = [kind_of(f.type) for f in source.schema]
-    number_cols = [i for i, k in enumerate(kinds) if k == NUMBER]
-    text_cols = [i for i, k in enumerate(kinds) if k in (TEXT, UNSUPPORTED)]
-    datetime_cols = [i for i, k in enumerate(kinds) if k == DATETIME]
-    feature_cols = [i for i, nm in enumerate(names) if nm != target]
-    feature_pos = {c: j for j, c in enumerate(feature_cols)}
-    keys = [key_of(nm) for nm in names]
-    n_num, n_txt, m = len(number_cols), len(text_cols), len(feature_cols)
+@dataclass
+class Layout:
+    """How each column of a schema is read; it depends on the schema and target alone."""
 
-    number, parsed = _number_stats(n_num), _number_stats(n_txt)
-    levels = [LevelCounter(LEVEL_CAP) for _ in range(n_num + n_txt)]
-    distinct = [DistinctSketch(DISTINCT_K) for _ in range(n_num + n_txt)]
-    nonnull = np.zeros(len(names))
-    miss_col = np.zeros(m)
-    miss_cells = miss_rows = 0
-    patterns = LevelCounter(PATTERN_CAP)
-    row_distinct = DistinctSketch(DISTINCT_K)
-    sample = BottomKSample(sample_cap, SEED)
-    digest = hashlib.sha256(repr((names, target)).encode())
-    offset = 0
+    names: list[str]
+    kinds: list[str]
+    types: list[str]
+    target: str
+    number_cols: list[int]
+    text_cols: list[int]
+    datetime_cols: list[int]
+    feature_cols: list[int]          # every column but the target, in table order
+    keys: list[np.uint64]            # per column, the key its values are hashed with
 
-    for batch in source.batches():
+    @classmethod
+    def of(cls, schema: pa.Schema, target: str) -> Layout:
+        """Raises :class:`BadInputError` for duplicate names or a missing target."""
+        names = list(schema.names)
+        if len(set(names)) != len(names):
+            raise BadInputError("the table has duplicate column names")
+        if target not in names:
+            cols = ", ".join(names[:20])
+            raise BadInputError(f"target column {target!r} not found; columns are: {cols}")
+        kinds = [kind_of(f.type) for f in schema]
+        return cls(names, kinds, [str(f.type) for f in schema], target,
+                   [i for i, k in enumerate(kinds) if k == NUMBER],
+                   [i for i, k in enumerate(kinds) if k in (TEXT, UNSUPPORTED)],
+                   [i for i, k in enumerate(kinds) if k == DATETIME],
+                   [i for i, nm in enumerate(names) if nm != target],
+                   [key_of(nm) for nm in names])
+
+
+class Accumulator:
+    """The mergeable summaries of a run of rows (see the module docstring).
+
+    Fed batch by batch with :meth:`add`; two accumulators of adjacent runs combine with
+    :meth:`merge`. ``hashing`` chooses the table hash: ``"sequence"``, a SHA-256 over the
+    row hashes in order (a single file or frame; not mergeable), or ``"set"``, sums of
+    mixed row hashes that do not depend on the rows' order or on how they are split
+    (a directory; mergeable). ``bound`` is a known upper bound on the priorities of the
+    rows the whole table's sample will keep: rows above it are not gathered.
+    """
+
+    def __init__(self, layout: Layout, sample_cap: int = SAMPLE_CAP,
+                 hashing: str = SEQUENCE, bound: int | None = None):
+        n_num, n_txt = len(layout.number_cols), len(layout.text_cols)
+        self.layout, self.hashing, self.rows = layout, hashing, 0
+        self.number, self.parsed = _number_stats(n_num), _number_stats(n_txt)
+        self.levels = [LevelCounter(LEVEL_CAP) for _ in range(n_num + n_txt)]
+        self.distinct = [DistinctSketch(DISTINCT_K) for _ in range(n_num + n_txt)]
+        self.nonnull = np.zeros(len(layout.names))
+        self.miss_col = np.zeros(len(layout.feature_cols))
+        self.miss_cells = self.miss_rows = 0
+        self.patterns = LevelCounter(PATTERN_CAP)
+        self.row_distinct = DistinctSketch(DISTINCT_K)
+        self.sample = BottomKSample(sample_cap, SEED, bound)
+        self.digest = (hashlib.sha256(repr((layout.names, layout.target)).encode())
+                       if hashing == SEQUENCE else None)
+        self.lanes = np.zeros(_LANES.size, dtype=np.uint64)
+        self._feature_pos = {c: j for j, c in enumerate(layout.feature_cols)}
+
+    def add(self, batch: pa.RecordBatch, offset: int) -> None:
+        """Fold in a batch whose first row is row ``offset`` of the whole table."""
         nb = batch.num_rows
         if nb == 0:
-            continue
-        cand = sample.candidates(offset, nb)
+            return
+        lay = self.layout
+        cand = self.sample.candidates(offset, nb)
         row_h = np.zeros(nb, dtype=np.uint64)
-        mask = np.zeros((nb, m), dtype=bool, order="F")  # filled column by column
+        mask = np.zeros((nb, len(lay.feature_cols)), dtype=bool, order="F")  # by column
         payload: dict[str, np.ndarray] = {}
         if cand is not None:
-            payload["num"] = np.empty((cand[0].size, n_num))
-            payload["text"] = np.empty((cand[0].size, n_txt), dtype=object)
-        moments_b = np.zeros((5, n_num))
-        for j, c in enumerate(number_cols):
+            payload["num"] = np.empty((cand[0].size, len(lay.number_cols)))
+            payload["text"] = np.empty((cand[0].size, len(lay.text_cols)), dtype=object)
+        self._numbers(batch, cand, row_h, mask, payload)
+        self._texts(batch, cand, row_h, mask, payload)
+        for c in lay.datetime_cols:
+            v, null = as_nanoseconds(batch.column(c))
+            row_h += hash_ints(v, null, lay.keys[c])
+            self.nonnull[c] += nb - int(null.sum())
+            if c in self._feature_pos:
+                mask[:, self._feature_pos[c]] = null
+        self._rows(mask, row_h)
+        if cand is not None:
+            payload["mask"] = mask[cand[0]]
+            self.sample.offer(offset, cand[0], cand[1], payload)
+        self.rows += nb
+
+    def _numbers(self, batch, cand, row_h, mask, payload) -> None:
+        lay, nb = self.layout, batch.num_rows
+        moments_b = np.zeros((5, len(lay.number_cols)))
+        for j, c in enumerate(lay.number_cols):
             x = as_float(batch.column(c))
             nan = np.isnan(x)
             ok = np.isfinite(x)
-            h = hash_floats(x, keys[c], nan)
+            h = hash_floats(x, lay.keys[c], nan)
             row_h += h
             v = x[ok]
             n_nan = int(nan.sum())
-            _update_numbers(number, moments_b, j, v, nb - n_nan - v.size)
-            nonnull[c] += nb - n_nan
-            _update_number_levels(levels[j], distinct[j], v, h[ok], keys[c])
-            if c in feature_pos:
-                mask[:, feature_pos[c]] = ~ok
+            _update_numbers(self.number, moments_b, j, v, nb - n_nan - v.size)
+            self.nonnull[c] += nb - n_nan
+            _update_number_levels(self.levels[j], self.distinct[j], v, h[ok], lay.keys[c])
+            if c in self._feature_pos:
+                mask[:, self._feature_pos[c]] = ~ok
             if cand is not None:
                 payload["num"][:, j] = x[cand[0]]
-        number.moments.merge(*moments_b)
-        parsed_b = np.zeros((5, n_txt))
-        for t, c in enumerate(text_cols):
+        self.number.moments.merge(*moments_b)
+
+    def _texts(self, batch, cand, row_h, mask, payload) -> None:
+        lay, n_num = self.layout, len(self.layout.number_cols)
+        parsed_b = np.zeros((5, len(lay.text_cols)))
+        for t, c in enumerate(lay.text_cols):
             codes, d = as_text(batch.column(c))
-            dh = np.append(hash_strings(d, keys[c]), NULL_HASH)
+            dh = np.append(hash_strings(d, lay.keys[c]), NULL_HASH)
             row_h += dh[codes]
             present = codes >= 0
-            nonnull[c] += int(present.sum())
+            self.nonnull[c] += int(present.sum())
             counts = np.bincount(codes[present], minlength=len(d))
             used = np.flatnonzero(counts)
-            slot = n_num + t
-            if not levels[slot].overflowed:
+            levels = self.levels[n_num + t]
+            if not levels.overflowed:
                 if used.size > LEVEL_CAP:
-                    levels[slot].give_up()
+                    levels.give_up()
                 else:
-                    levels[slot].add(np.asarray(d.take(pa.array(used)).to_numpy(
+                    levels.add(np.asarray(d.take(pa.array(used)).to_numpy(
                         zero_copy_only=False), dtype=object), counts[used].astype(float))
-            distinct[slot].add(dh[used])
+            self.distinct[n_num + t].add(dh[used])
             values = np.append(parse_numbers(d), np.nan)[codes]
             finite = np.isfinite(values)
-            _update_numbers(parsed, parsed_b, t, values[finite],
+            _update_numbers(self.parsed, parsed_b, t, values[finite],
                             int((np.isinf(values)).sum()))
-            if c in feature_pos:
-                mask[:, feature_pos[c]] = ~present
+            if c in self._feature_pos:
+                mask[:, self._feature_pos[c]] = ~present
             if cand is not None:
-                pos = codes[cand[0]]
-                vals = (np.asarray(d.take(pa.array(np.maximum(pos, 0))).to_numpy(
-                    zero_copy_only=False), dtype=object) if len(d)
-                    else np.full(pos.size, None, dtype=object))
-                vals[pos < 0] = None
-                payload["text"][:, t] = vals
-        parsed.moments.merge(*parsed_b)
-        for c in datetime_cols:
-            v, null = as_nanoseconds(batch.column(c))
-            row_h += hash_ints(v, null, keys[c])
-            nonnull[c] += nb - int(null.sum())
-            if c in feature_pos:
-                mask[:, feature_pos[c]] = null
+                payload["text"][:, t] = _sample_text(d, codes[cand[0]])
+        self.parsed.moments.merge(*parsed_b)
 
-        miss_col += mask.sum(axis=0)
+    def _rows(self, mask: np.ndarray, row_h: np.ndarray) -> None:
+        self.miss_col += mask.sum(axis=0)
         any_missing = mask.any(axis=1)
-        miss_cells += int(mask.sum())
-        miss_rows += int(any_missing.sum())
-        if not patterns.overflowed:
-            patterns.add(*unique_counts(_pattern_keys(mask)))
-        digest.update(row_h.astype("<u8").tobytes())
-        row_distinct.add(mix64(row_h))
-        if cand is not None:
-            payload["mask"] = mask[cand[0]]
-            sample.offer(offset, cand[0], cand[1], payload)
-        offset += nb
+        self.miss_cells += int(mask.sum())
+        self.miss_rows += int(any_missing.sum())
+        if not self.patterns.overflowed:
+            self.patterns.add(*unique_counts(_pattern_keys(mask)))
+        if self.digest is not None:
+            self.digest.update(row_h.astype("<u8").tobytes())
+        else:
+            # integer sums wrap modulo 2**64, so they are exact and merge in any order
+            self.lanes += mix64(row_h[:, None] ^ _LANES[None, :]).sum(axis=0, dtype=np.uint64)
+        self.row_distinct.add(mix64(row_h))
 
-    if offset == 0:
-        raise BadInputError("the table has no rows")
-    index, priority, payload = sample.in_row_order()
-    return Scan(
-        names=names, kinds=kinds, types=[str(f.type) for f in source.schema], target=target,
-        n_rows=offset, mixed=list(source.mixed), number_cols=number_cols,
-        text_cols=text_cols, datetime_cols=datetime_cols, feature_cols=feature_cols,
-        nonnull=nonnull, number=number, parsed=parsed, levels=levels, distinct=distinct,
-        missing_by_column=miss_col, missing_cells=miss_cells, missing_rows=miss_rows,
-        patterns=patterns, row_distinct=row_distinct, dataset_hash=digest.hexdigest(),
-        sample_index=index, sample_priority=priority,
-        sample_numbers=payload.get("num", np.empty((0, n_num))),
-        sample_text=payload.get("text", np.empty((0, n_txt), dtype=object)),
-        sample_missing=payload.get("mask", np.empty((0, m), dtype=bool)),
-    )
+    def merge(self, other: Accumulator) -> Accumulator:
+        """Fold in the summaries of the rows after this run (or, for everything but the
+        floating-point rounding of the moments, any other rows); returns ``self``."""
+        if self.digest is not None or other.digest is not None:
+            raise ValueError("accumulators with a sequence hash cannot be merged")
+        self.rows += other.rows
+        _merge_numbers(self.number, other.number)
+        _merge_numbers(self.parsed, other.parsed)
+        for a, b in zip(self.levels, other.levels):
+            a.merge(b)
+        for a, b in zip(self.distinct, other.distinct):
+            a.merge(b)
+        self.nonnull += other.nonnull
+        self.miss_col += other.miss_col
+        self.miss_cells += other.miss_cells
+        self.miss_rows += other.miss_rows
+        self.patterns.merge(other.patterns)
+        self.row_distinct.merge(other.row_distinct)
+        self.sample.merge(other.sample)
+        self.lanes += other.lanes
+        return self
+
+    def dataset_hash(self) -> str:
+        if self.digest is not None:
+            return self.digest.hexdigest()
+        lay = self.layout
+        d = hashlib.sha256(repr(("rows as a set", lay.names, lay.target)).encode())
+        d.update(np.array([self.rows], dtype="<u8").tobytes())
+        d.update(self.lanes.astype("<u8").tobytes())
+        return d.hexdigest()
+
+    def finish(self, mixed: list[str] | None = None) -> Scan:
+        """The :class:`Scan` of every row added; raises when there were none."""
+        if self.rows == 0:
+            raise BadInputError("the table has no rows")
+        lay = self.layout
+        index, priority, payload = self.sample.in_row_order()
+        return Scan(
+            names=lay.names, kinds=lay.kinds, types=lay.types, target=lay.target,
+            n_rows=self.rows, mixed=list(mixed or []), number_cols=lay.number_cols,
+            text_cols=lay.text_cols, datetime_cols=lay.datetime_cols,
+            feature_cols=lay.feature_cols, nonnull=self.nonnull, number=self.number,
+            parsed=self.parsed, levels=self.levels, distinct=self.distinct,
+            missing_by_column=self.miss_col, missing_cells=self.miss_cells,
+            missing_rows=self.miss_rows, patterns=self.patterns,
+            row_distinct=self.row_distinct, dataset_hash=self.dataset_hash(),
+            sample_index=index, sample_priority=priority,
+            sample_numbers=payload.get("num", np.empty((0, len(lay.number_cols)))),
+            sample_text=payload.get("text", np.empty((0, len(lay.text_cols)), dtype=object)),
+            sample_missing=payload.get("mask", np.empty((0, len(lay.feature_cols)),
+                                                        dtype=bool)),
+        )
+
+
+def _sample_text(d: pa.Array, pos: np.ndarray) -> np.ndarray:
+    """The strings at dictionary positions ``pos`` (-1 = missing -> None), as objects."""
+    vals = (np.asarray(d.take(pa.array(np.maximum(pos, 0))).to_numpy(zero_copy_only=False),
+                       dtype=object) if len(d) else np.full(pos.size, None, dtype=object))
+    vals[pos < 0] = None
+    return vals
+
+
+def _merge_numbers(a: NumberStats, b: NumberStats) -> None:
+    a.finite += b.finite
+    a.infinite += b.infinite
+    a.zeros += b.zeros
+    a.minimum = np.minimum(a.minimum, b.minimum)
+    a.maximum = np.maximum(a.maximum, b.maximum)
+    a.integer &= b.integer
+    m = b.moments
+    a.moments.merge(m.n, m.mean, m.m2, m.m3, m.m4)
+
+
+def scan(source: Source, target: str, sample_cap: int = SAMPLE_CAP) -> Scan:
+    """Read every batch of ``source`` once and summarise it (see :class:`Scan`).
+
+    A directory is summarised part by part and the parts merged in order, exactly as
+    a cluster does it (:mod:`warmstart.cluster`), so both give the same fingerprint.
+    """
+    layout = Layout.of(source.schema, target)
+    if source.directory is None:
+        acc = Accumulator(layout, sample_cap)
+        offset = 0
+        for batch in source.batches():
+            acc.add(batch, offset)
+            offset += batch.num_rows
+        return acc.finish(source.mixed)
+    total: Accumulator | None = None
+    for part in source.directory.parts:
+        bound = None if total is None else total.sample.full_bound()
+        acc = scan_part(source.directory.schema, part, layout, sample_cap,
+                        source.batch_rows, bound)
+        total = acc if total is None else total.merge(acc)
+    return finish_directory(source.directory, total, layout, sample_cap)
+
+
+def scan_part(schema: pa.Schema, part: Part, layout: Layout, sample_cap: int,
+              batch_rows: int, bound: int | None = None) -> Accumulator:
+    """The accumulator of one part of a directory (run here or on a cluster's worker)."""
+    acc = Accumulator(layout, sample_cap, ROW_SET, bound)
+    offset = part.start
+    for batch in part_batches(part, schema, batch_rows):
+        acc.add(batch, offset)
+        offset += batch.num_rows
+    if acc.rows != part.rows:
+        raise BadInputError(f"{part.path} changed while it was read ({acc.rows} rows, "
+                            f"its footer said {part.rows})")
+    return acc
+
+
+def finish_directory(directory: ParquetDirectory, total: Accumulator | None,
+                     layout: Layout, sample_cap: int) -> Scan:
+    """The scan of a directory from the merge of all its parts' accumulators."""
+    if total is None:  # files without row groups
+        total = Accumulator(layout, sample_cap, ROW_SET)
+    if total.rows != directory.n_rows:
+        raise BadInputError(f"{directory.root}: {total.rows} rows were summarised but its "
+                            f"footers hold {directory.n_rows}; nothing was computed")
+    return total.finish()
 
 
 def _update_numbers(stats: NumberStats, moments_b: np.ndarray, j: int, v: np.ndarray,

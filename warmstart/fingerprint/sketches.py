@@ -17,7 +17,11 @@ bounded amount of state, so a table of any length can be summarised in constant 
 * :class:`BottomKSample` -- a seeded uniform sample of at most ``cap`` rows: each row gets
   the priority ``mix64(row index, seed)`` and the ``cap`` rows of smallest priority are
   kept. It is a reservoir sample whose content does not depend on how the rows were cut
-  into batches, so a DataFrame and its Parquet file give the same sample.
+  into batches, so a DataFrame and its Parquet file give the same sample; samples of
+  disjoint row ranges merge into the sample of their union.
+
+Every summary has a ``merge`` that combines it with the summary of other rows, so the
+summaries of the parts of a table, computed apart, add up to the table's.
 
 Hashes are 64-bit (:func:`mix64`, the SplitMix64 finaliser of Steele, Lea & Flood,
 OOPSLA 2014), computed on whole arrays.
@@ -161,6 +165,13 @@ class LevelCounter:
             return
         self.keys, self.counts = uniq, total
 
+    def merge(self, other: LevelCounter) -> None:
+        """Add the counts of another counter (gives up if either did)."""
+        if other.overflowed:
+            self.give_up()
+        elif other.keys is not None:
+            self.add(other.keys, other.counts)
+
     def give_up(self) -> None:
         """Stop counting: there are more than ``cap`` levels."""
         self.overflowed, self.counts = True, np.zeros(0)
@@ -184,6 +195,10 @@ class DistinctSketch:
         if hashes.size:
             self.h = sorted_distinct(np.concatenate([self.h, hashes]))[: self.k]
 
+    def merge(self, other: DistinctSketch) -> None:
+        """The sketch of the union: the ``k`` smallest of both sets of hashes."""
+        self.add(other.h)
+
     def estimate(self) -> tuple[float, bool]:
         """(distinct count, exact?)."""
         if self.h.size < self.k:
@@ -196,12 +211,16 @@ class BottomKSample:
     """Rows of smallest seeded priority, at most ``cap`` of them, batch-order independent.
 
     Payload arrays (one per field) are gathered only for candidate rows, so the cost per
-    batch is one vectorised hash and comparison of the row indices.
+    batch is one vectorised hash and comparison of the row indices. ``bound``, when
+    known, is the largest priority the sample of the whole table keeps (see
+    :meth:`smallest`): rows above it are never candidates, so the sample of a part of
+    the table holds only rows that the whole table's sample will keep.
     """
 
-    def __init__(self, cap: int, seed: int):
+    def __init__(self, cap: int, seed: int, bound: int | None = None):
         self.cap = cap
         self.seed = np.uint64((int(seed) * int(_GOLDEN)) % 2**64)
+        self.bound = None if bound is None else np.uint64(bound)
         self.priority = np.zeros(0, dtype=np.uint64)
         self.index = np.zeros(0, dtype=np.int64)
         self.payload: dict[str, np.ndarray] = {}
@@ -209,11 +228,42 @@ class BottomKSample:
     def candidates(self, start: int, n: int) -> tuple[np.ndarray, np.ndarray] | None:
         """Positions in the batch ``[start, start + n)`` that may enter the sample."""
         pri = mix64(np.arange(start, start + n, dtype=np.uint64) ^ self.seed)
-        if self.priority.size >= self.cap:
-            pos = np.flatnonzero(pri < self.priority.max())
-        else:
-            pos = np.arange(n)
+        ok = pri < self.priority.max() if self.priority.size >= self.cap else None
+        if self.bound is not None:
+            ok = pri <= self.bound if ok is None else ok & (pri <= self.bound)
+        pos = np.arange(n) if ok is None else np.flatnonzero(ok)
         return (pos, pri[pos]) if pos.size else None
+
+    def full_bound(self) -> int | None:
+        """The largest kept priority once ``cap`` rows are kept (a bound for later rows)."""
+        return int(self.priority.max()) if self.priority.size >= self.cap else None
+
+    def smallest(self, start: int, stop: int, chunk: int = 1 << 20) -> np.ndarray:
+        """The ``cap`` smallest priorities of the rows ``[start, stop)``, sorted.
+
+        Needs no data, only row numbers; memory is ``chunk`` rows at a time.
+        """
+        best = np.zeros(0, dtype=np.uint64)
+        for lo in range(start, stop, chunk):
+            pri = mix64(np.arange(lo, min(lo + chunk, stop), dtype=np.uint64) ^ self.seed)
+            best = np.concatenate([best, pri])
+            if best.size > self.cap:
+                best = np.partition(best, self.cap - 1)[: self.cap]
+        return np.sort(best)
+
+    @staticmethod
+    def bound_of(smallest: list[np.ndarray], cap: int) -> int | None:
+        """The whole table's ``bound`` from :meth:`smallest` of ranges covering it; None
+        when the table has fewer than ``cap`` rows (every row is kept)."""
+        allp = np.concatenate([np.zeros(0, dtype=np.uint64), *smallest])
+        if allp.size < cap:
+            return None
+        return int(np.partition(allp, cap - 1)[cap - 1])
+
+    def merge(self, other: BottomKSample) -> None:
+        """The sample of the union of two disjoint row ranges."""
+        if other.index.size:
+            self.offer(0, other.index, other.priority, other.payload)
 
     def offer(self, start: int, pos: np.ndarray, pri: np.ndarray,
               payload: dict[str, np.ndarray]) -> None:
