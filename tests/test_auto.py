@@ -189,3 +189,18 @@ def test_verdict_names_the_winner_margin_and_sample_size():
     big = verdict(_result({"a": [0.5] * 20, "b": [0.2] * 20}))
     assert big[0].startswith("knn classification: b wins at k=5 (mean regret 0.200; 0.300 "
                              "below a) over 20") and "warning" not in big[0]
+
+
+def test_choice_and_answer_read_at_most_max_pool_datasets(demo, monkeypatch):
+    ids = _ids(demo)
+    monkeypatch.setattr(auto, "MAX_POOL", auto.MIN_CHOICE_DATASETS + 1)
+    ctx = _context(demo, ids[0], exclude={ids[0]})
+    assert len(ids) - 1 > auto.MAX_POOL
+    rec = Recorder()
+    choice = AutoChoice(candidates=(rec,))._choose(ctx)
+    # the sample is the pool; one of its datasets is held out of each inner question
+    assert choice["datasets"] <= auto.MAX_POOL
+    assert all(len(visible) <= auto.MAX_POOL - 1 for _, visible in rec.seen)
+    out = AutoChoice(candidates=(rec,), fallback=rec).propose(ctx, 3)
+    nearest = {n.dataset_id for n in ctx.neighbours[:auto.MAX_POOL]}
+    assert out and rec.seen[-1][1] <= nearest

@@ -20,6 +20,11 @@ a mean over so few held-out datasets is noise, and ``FALLBACK`` is used: the ble
 shrinks the similarity weights half-way to uniform (it neither trusts the neighbours
 fully nor ignores them).
 
+**Bounded cost.** The grid is small, at most ``MAX_CHOICE_DATASETS`` datasets are held
+out, and on a large history both the choice and the answer read at most ``MAX_POOL``
+datasets: the choice a seeded sample of the history (so it stays one choice per family
+and task, whatever the query), the answer the query's ``MAX_POOL`` nearest.
+
 **Cache.** The choice depends only on the studies the context holds (ids are unique
 and studies are append-only), the family, task, metric, space, candidates and seed. It is
 kept in memory and, when the context names a cache directory (``suggest`` uses
@@ -48,6 +53,7 @@ from warmstart.strategies.transfer import TransferForest
 CHOICE_K = 5
 MIN_CHOICE_DATASETS = 8
 MAX_CHOICE_DATASETS = 20
+MAX_POOL = 200
 CACHE_VERSION = 1
 
 # The grid: the shipped portfolio, a wider softer one, the blend at three strengths
@@ -97,11 +103,16 @@ class AutoChoice:
     def propose(self, ctx: SuggestContext, k: int) -> list[Suggestion]:
         choice = self.choose(ctx)
         by_name = {s.name: s for s in (*self.candidates, self.fallback)}
-        out = by_name[choice["chosen"]].propose(ctx, k)
+        nearest_ids = [n.dataset_id for n in ctx.neighbours[:MAX_POOL]]
+        out = by_name[choice["chosen"]].propose(_keep(ctx, nearest_ids), k)
         return [dataclasses.replace(s, strategy=self.name, choice=choice) for s in out]
 
     # -- the choice ------------------------------------------------------------------------
     def _choose(self, ctx: SuggestContext) -> dict[str, Any]:
+        pool = sorted(set(ctx.studies["dataset_id"]) - _skipped(ctx))
+        if len(pool) > MAX_POOL:  # a seeded sample, the same for every query
+            rng = np.random.default_rng(ctx.seed)
+            ctx = _keep(ctx, rng.permutation(pool)[:MAX_POOL].tolist())
         ids = _rankable(ctx)
         if len(ids) < MIN_CHOICE_DATASETS:
             return {"chosen": self.fallback.name, "datasets": len(ids), "regrets": {},
@@ -126,6 +137,17 @@ class AutoChoice:
                  "" if ctx.candidates is None else ",".join(sorted(ctx.candidate_keys)),
                  *sids]
         return hashlib.sha256("\n".join(parts).encode()).hexdigest()[:32]
+
+
+def _keep(ctx: SuggestContext, dataset_ids: list[str]) -> SuggestContext:
+    """A view of ``ctx`` with only these datasets' studies and neighbours (``ctx`` itself
+    when that is all of them)."""
+    keep = set(dataset_ids)
+    if keep >= set(ctx.studies["dataset_id"]):
+        return ctx
+    studies = ctx.studies[ctx.studies["dataset_id"].isin(keep)].reset_index(drop=True)
+    return dataclasses.replace(ctx, studies=studies,
+                               neighbours=[n for n in ctx.neighbours if n.dataset_id in keep])
 
 
 def _skipped(ctx: SuggestContext) -> set[str]:
@@ -212,5 +234,5 @@ def _write(path: Path | None, choice: dict[str, Any]) -> None:
         return
 
 
-__all__ = ["CANDIDATES", "CHOICE_K", "FALLBACK", "MAX_CHOICE_DATASETS",
+__all__ = ["CANDIDATES", "CHOICE_K", "FALLBACK", "MAX_CHOICE_DATASETS", "MAX_POOL",
            "MIN_CHOICE_DATASETS", "AutoChoice", "inner_regret"]
