@@ -73,12 +73,16 @@ class TransferForest:
 
         dataset_of = dict(zip(ctx.studies["study_id"], ctx.studies["dataset_id"]))
         fps = {d: ctx.fingerprints[d] for d in set(dataset_of.values()) if d in ctx.fingerprints}
-        names = feature_names(fps, ctx.query)
+        names = feature_names(fps, ctx.query) if fps else []
         ids = sorted(fps)
-        scaler = fit_scaler(matrix([fps[i] for i in ids], names), names)
-        meta = dict(zip(ids, _finite(scaler.transform(matrix([fps[i] for i in ids], names)))))
-        pos = np.concatenate([ctx.trials.study_positions(s) for s in sids
-                              if dataset_of[s] in meta] or [np.zeros(0, dtype=np.intp)])
+        raw = matrix([fps[i] for i in ids], names)
+        scaler = fit_scaler(raw, names) if names else None
+        # a dataset without a stored fingerprint sits at the history's median (0)
+        meta = {d: np.zeros(len(names)) for d in dataset_of.values()}
+        if scaler is not None:
+            meta.update(zip(ids, _finite(scaler.transform(raw))))
+        pos = np.concatenate([ctx.trials.study_positions(s) for s in sids]
+                             or [np.zeros(0, dtype=np.intp)])
         if pos.size > self.max_rows:  # bounded cost on large histories
             pos = np.sort(np.random.default_rng(ctx.seed).choice(pos, self.max_rows,
                                                                  replace=False))
@@ -107,7 +111,8 @@ class TransferForest:
             return []
         keys = sorted(cands)
         configs = [cands[key] for key in keys]
-        q = _finite(scaler.transform(matrix([ctx.query], scaler.names)))[0]
+        q = (np.zeros(0) if scaler is None else
+             _finite(scaler.transform(matrix([ctx.query], scaler.names)))[0])
         X = np.hstack([np.repeat(q[None, :], len(keys), axis=0), ctx.full_space.encode(configs)])
         P = np.clip(np.column_stack([t.predict(X) for t in model.estimators_]), 0.0, 1.0)
         w = np.full(P.shape[1], 1.0 / P.shape[1])
