@@ -123,6 +123,18 @@ def greedy_order(P: np.ndarray, w: np.ndarray, k: int, first: int | None = None)
     return greedy_steps(P, w, k, first)[0]
 
 
+def candidate_configs(ctx: SuggestContext, seen: list[dict]) -> tuple[list[str], list[dict]]:
+    """Candidates in canonical-key order: ``ctx.candidates`` when given, else ``seen``,
+    brought into ``ctx.space`` and de-duplicated; (keys, configurations)."""
+    cands: dict[str, dict] = {}
+    for c in ctx.candidates if ctx.candidates is not None else seen:
+        clipped = ctx.space.clip(c)
+        if clipped is not None:
+            cands.setdefault(ctx.key(clipped), clipped)
+    keys = sorted(cands)
+    return keys, [cands[key] for key in keys]
+
+
 def exact_first(ctx: SuggestContext, row_of: dict[str, int]) -> int | None:
     """The candidate row (``row_of``: canonical key -> row) of the best trial of a
     distance-0 dataset that is a candidate, or None."""
@@ -198,17 +210,9 @@ class GreedyPortfolio:
         pos = np.unique(np.concatenate([ctx.trials.study_positions(sid)
                                         for sid in set(unit_ids)]))
         src = ctx.trials.rows_at(pos).assign(key=ctx.trials.keys_at(pos))
-        # candidates: canonical key -> configuration inside the (user) space
-        cands: dict[str, dict] = {}
-        pool = ctx.candidates if ctx.candidates is not None else list(src["config"])
-        for c in pool:
-            clipped = ctx.space.clip(c)
-            if clipped is not None:
-                cands.setdefault(ctx.key(clipped), clipped)
-        if not cands:
+        keys, configs = candidate_configs(ctx, list(src["config"]))
+        if not keys:
             return []
-        keys = sorted(cands)
-        configs = [cands[key] for key in keys]
         row_of = {key: i for i, key in enumerate(keys)}
         col_of = {sid: j for j, sid in enumerate(unit_ids)}
         P = np.full((len(keys), len(units)), np.nan)

@@ -30,7 +30,7 @@ from warmstart.similarity import feature_names, fit_scaler, matrix
 from warmstart.strategies.base import Suggestion
 from warmstart.strategies.context import SuggestContext
 from warmstart.strategies.explain import observed_support, pick_source
-from warmstart.strategies.portfolio import exact_first, greedy_steps
+from warmstart.strategies.portfolio import candidate_configs, exact_first, greedy_steps
 
 
 class TransferForest:
@@ -102,15 +102,9 @@ class TransferForest:
             return []
         model, scaler, pos = fitted
         src = ctx.trials.rows_at(pos).assign(key=ctx.trials.keys_at(pos))
-        cands: dict[str, dict] = {}
-        for c in ctx.candidates if ctx.candidates is not None else list(src["config"]):
-            clipped = ctx.space.clip(c)
-            if clipped is not None:
-                cands.setdefault(ctx.key(clipped), clipped)
-        if not cands:
+        keys, configs = candidate_configs(ctx, list(src["config"]))
+        if not keys:
             return []
-        keys = sorted(cands)
-        configs = [cands[key] for key in keys]
         q = (np.zeros(0) if scaler is None else
              _finite(scaler.transform(matrix([ctx.query], scaler.names)))[0])
         X = np.hstack([np.repeat(q[None, :], len(keys), axis=0), ctx.full_space.encode(configs)])
