@@ -94,7 +94,8 @@ class AutoChoice:
             return _MEMORY[digest]
         path = None if ctx.cache_dir is None else Path(ctx.cache_dir) / f"auto-{digest}.json"
         choice = _read(path)
-        if choice is None:
+        names = {s.name for s in (*self.candidates, self.fallback)}
+        if choice is None or choice["chosen"] not in names:
             choice = self._choose(ctx)
             _write(path, choice)
         _MEMORY[digest] = choice
@@ -120,7 +121,12 @@ class AutoChoice:
         rng = np.random.default_rng(ctx.seed)
         ids = sorted(rng.permutation(ids)[:MAX_CHOICE_DATASETS].tolist())
         regrets = np.array([[inner_regret(ctx, s, d) for s in self.candidates] for d in ids])
-        mean = np.nanmean(regrets, axis=0)
+        with np.errstate(all="ignore"):
+            mean = np.array([np.nan if np.isnan(c).all() else np.nanmean(c)
+                             for c in regrets.T])
+        if np.isnan(mean).all():  # no candidate proposed anything
+            return {"chosen": self.fallback.name, "datasets": len(ids), "regrets": {},
+                    "rule": "no candidate could be scored: fallback"}
         best = int(np.nanargmin(mean))
         return {"chosen": self.candidates[best].name, "datasets": len(ids),
                 "regrets": {s.name: float(m) for s, m in zip(self.candidates, mean)},
@@ -133,7 +139,7 @@ class AutoChoice:
         parts = [str(CACHE_VERSION), ctx.family.name, ctx.query.task, str(ctx.seed),
                  ",".join(sorted(set(ctx.studies["metric"]))), json.dumps(ctx.space.to_dict()),
                  "|".join(s.name for s in (*self.candidates, self.fallback)),
-                 f"{CHOICE_K}-{MIN_CHOICE_DATASETS}-{MAX_CHOICE_DATASETS}",
+                 f"{CHOICE_K}-{MIN_CHOICE_DATASETS}-{MAX_CHOICE_DATASETS}-{MAX_POOL}",
                  "" if ctx.candidates is None else ",".join(sorted(ctx.candidate_keys)),
                  *sids]
         return hashlib.sha256("\n".join(parts).encode()).hexdigest()[:32]
