@@ -129,7 +129,8 @@ class AutoChoice:
                     "rule": "no candidate could be scored: fallback"}
         best = int(np.nanargmin(mean))
         return {"chosen": self.candidates[best].name, "datasets": len(ids),
-                "regrets": {s.name: float(m) for s, m in zip(self.candidates, mean)},
+                "regrets": {s.name: None if np.isnan(m) else float(m)
+                            for s, m in zip(self.candidates, mean)},
                 "rule": f"lowest leave-one-dataset-out regret at {CHOICE_K}"}
 
     def _digest(self, ctx: SuggestContext) -> str:
