@@ -230,10 +230,10 @@ def backtest_tables(tables: dict[str, pd.DataFrame], fingerprints: dict[str, Fin
         Reused across calls with the same history and normalisation.
     """
     fam = get_family(family)
-    run = _Run(fam, _check_ks(ks), _check_strategies(strategies), fingerprints,
+    ks, repeats = _check_ks(ks), _check_repeats(random_repeats)
+    run = _Run(fam, ks, _check_strategies(strategies), fingerprints,
                dict(zip(tables["datasets"]["dataset_id"], tables["datasets"]["name"])),
-               seed, _check_repeats(random_repeats),
-               SurrogateCache() if surrogate_cache is None else surrogate_cache)
+               seed, repeats, SurrogateCache() if surrogate_cache is None else surrogate_cache)
     plans = _plan(tables, fam, metric, space, candidates, history_trials, normalisation)
     if not plans:
         raise BadInputError(f"backtesting {fam.name!r} needs at least two datasets with a "
@@ -243,6 +243,12 @@ def backtest_tables(tables: dict[str, pd.DataFrame], fingerprints: dict[str, Fin
         excluded = _exclusions(plan.dataset_ids, groups or {}, seed)
         jobs += [(plan, h, excluded[h]) for h in plan.dataset_ids
                  if holdout is None or h in holdout]
+    return _run_jobs(run, plans, jobs, progress)
+
+
+def _run_jobs(run: _Run, plans: list[_TaskPlan], jobs: list[tuple[_TaskPlan, str, set[str]]],
+              progress: Callable[[int, int], None] | None) -> BacktestResult:
+    """Hold out each job's dataset in turn and collect the regrets."""
     per: list[dict[str, Any]] = []
     lookups = {s.name: {"lookups": 0, "predicted": 0} for s in run.strategies}
     skipped: list[str] = []
@@ -260,7 +266,7 @@ def backtest_tables(tables: dict[str, pd.DataFrame], fingerprints: dict[str, Fin
         if progress is not None:
             progress(n_done, len(jobs))
     cols = ["dataset_id", "name", "task", "strategy", "k", "regret"]
-    return BacktestResult(fam.name, run.ks, [s.name for s in run.strategies],
+    return BacktestResult(run.family.name, run.ks, [s.name for s in run.strategies],
                           {plan.task: plan.metric for plan in plans},
                           pd.DataFrame(per, columns=cols), lookups, skipped)
 

@@ -28,14 +28,8 @@ from warmstart.families.base import Family
 from warmstart.fingerprint import Fingerprint
 from warmstart.metrics import DEFAULT_METRIC
 from warmstart.similarity import nearest
-from warmstart.strategies import (
-    Strategy,
-    SuggestContext,
-    Suggestion,
-    TrialIndex,
-    prepare_trials,
-    user_space,
-)
+from warmstart.spaces import user_space
+from warmstart.strategies import Strategy, SuggestContext, Suggestion, TrialIndex, prepare_trials
 from warmstart.surrogate import SurrogateCache
 
 # With a fit-time cap, strategies are asked for this many times k (the cap removes some).
