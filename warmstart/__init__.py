@@ -17,5 +17,14 @@ from warmstart.fingerprint import Fingerprint, catalogue, fingerprint  # noqa: E
 from warmstart.history import KnowledgeBase  # noqa: E402
 from warmstart.version import __version__  # noqa: E402
 
-__all__ = ["BadInputError", "Fingerprint", "KnowledgeBase", "NothingToSuggestError",
+__all__ = ["BadInputError", "Client", "Fingerprint", "KnowledgeBase", "NothingToSuggestError",
            "WarmstartError", "__version__", "catalogue", "families", "fingerprint"]
+
+
+def __getattr__(name: str):
+    # imported on first use: the client pulls in modules a plain ``import warmstart`` skips
+    if name == "Client":
+        from warmstart.service.client import Client
+
+        return Client
+    raise AttributeError(f"module 'warmstart' has no attribute {name!r}")

@@ -59,7 +59,7 @@ from warmstart.storage import (
     write_atomic,
 )
 from warmstart.strategies import DEFAULT_STRATEGY, Suggestion, get_strategy
-from warmstart.trials import OK, Trial, TrialsInput, validate_trials
+from warmstart.trials import OK, Trial, TrialsInput, check_trials
 from warmstart.version import __version__
 
 ENV_VAR = "WARMSTART_KB"
@@ -307,7 +307,9 @@ class KnowledgeBase:
             A declared model family (see :func:`warmstart.families`).
         trials : DataFrame, path or list of dicts
             One row per trial: parameter columns, ``score``, optional ``fit_seconds``,
-            ``status`` and ``error``.
+            ``status`` and ``error``; or a search's saved ``cv_results_`` table. Each
+            parameter is checked by the estimator itself, not by the search space, so
+            what was run is stored as given (see :func:`warmstart.trials.check_trials`).
         metric : str, optional
             scikit-learn scorer name; defaults to balanced accuracy or R².
         direction : {"maximize", "minimize"}, optional
@@ -324,7 +326,7 @@ class KnowledgeBase:
         fam = get_family(family)
         fp = query_fingerprint(data, target, task, fingerprint_of)
         metric_obj = resolve_metric(metric or DEFAULT_METRIC[fp.task], direction)
-        checked = validate_trials(trials, fam.space(fp.task), metric_obj)
+        checked = check_trials(trials, fam, fp.task, metric_obj)
         if not re.fullmatch(r"[0-9a-f]{64}", fp.dataset_hash):
             raise BadInputError("the fingerprint's dataset_hash is not 64 hex digits")
         if not isinstance(source, str) or not source:
@@ -344,6 +346,27 @@ class KnowledgeBase:
             best = max(scores) if metric_obj.direction == MAXIMIZE else min(scores)
         return LoggedStudy(study_id, dataset_id, is_new, fam.name, fp.task, metric_obj.name,
                            metric_obj.direction, label, len(checked), len(scores), best)
+
+    def log_search(self, search: Any, X: pd.DataFrame, y: Any, *, name: str | None = None,
+                   metric: str | None = None) -> LoggedStudy:
+        """Log a fitted scikit-learn search (GridSearchCV, RandomizedSearchCV or a halving
+        search) run on ``X`` and ``y``.
+
+        The family comes from the (final pipeline step's) estimator class, the metric from
+        ``search.scoring`` (``metric`` picks one of several), fit seconds from
+        ``mean_fit_time``. ``X`` and ``y`` are fingerprinted here; no rows are stored.
+        """
+        from warmstart.searches import trials_from_search
+
+        found = trials_from_search(search, metric)
+        if not isinstance(X, pd.DataFrame):
+            X = pd.DataFrame(np.asarray(X)).rename(columns=lambda c: f"x{c}")
+        target = getattr(y, "name", None) or "target"
+        if target in X.columns:
+            raise BadInputError(f"X already has a column named {target!r}, the target's name")
+        frame = X.assign(**{target: np.asarray(y)})
+        return self.log(frame, target=target, family=found.family, trials=found.trials,
+                        metric=found.metric, task=found.task, name=name)
 
     def _check_writable(self) -> None:
         check_writable(self.path)

@@ -113,6 +113,21 @@ def families_present(tables) -> list[str]:
     return [f for f in build.FAMILIES if f in have]
 
 
+def coverage(tables, groups, family: str, ids: set) -> dict[str, dict[str, int]]:
+    """Task -> {"datasets", "groups"} of ``family``'s studies among dataset ids ``ids``."""
+    st = tables["studies"]
+    st = st[(st["family"] == family) & st["dataset_id"].isin(ids)]
+    return {t: {"datasets": int(g["dataset_id"].nunique()),
+                "groups": len({groups[i] for i in g["dataset_id"]})}
+            for t, g in st.groupby("task")}
+
+
+def covered(cov: dict) -> bool:
+    """A half can test a family when some task's studies span two groups or more (a
+    held-out dataset needs history outside its own group)."""
+    return any(c["groups"] >= 2 for c in cov.values())
+
+
 def history_subset(trials: pd.DataFrame, n: int = HISTORY_TRIALS) -> pd.DataFrame:
     """A seeded subset of ``n`` trials per study (the history a team would have)."""
     parts = []
@@ -364,8 +379,12 @@ def cached_backtest(tables, fps, groups, family, strategies, ids, half) -> pd.Da
     digest of the inputs, so that a rerun only computes families whose results changed.
     Delete cache/eval-* after changing the strategies' code."""
     names = [s.name for s in strategies]
+    # the settings too: the tuned setting keeps its name when the tuning picks another
+    settings = [(s.name, *(getattr(s, a, None) for a in ("neighbours", "temperature",
+                                                           "weighted", "shrink")))
+                for s in strategies]
     digest = _digest(tables, fps, groups, family, names,
-                     (half, sorted(ids), KS, RANDOM_REPEATS, tuple(names)))
+                     (half, sorted(ids), KS, RANDOM_REPEATS, repr(settings)))
     path = build.CACHE / f"eval-{family}-{half}-{digest}.parquet"
     if path.is_file():
         return pd.read_parquet(path)
@@ -428,6 +447,21 @@ def evaluate_family(tables, fps, groups, family, strategies, ids, half, plot=Tru
     return {"summary": summary, "k5": rows}
 
 
+def _coverage_report(tables, groups, families, tune_ids, eval_ids):
+    """Print what each family covers in each half; the coverage, the families the tuning
+    half can tune on and those the evaluation half can test."""
+    cov = {f: {"tuning": coverage(tables, groups, f, tune_ids),
+               "evaluation": coverage(tables, groups, f, eval_ids)} for f in families}
+    for f, c in cov.items():
+        print(f"  {f}: " + "; ".join(f"{h} " + ", ".join(
+            f"{t} {v['datasets']} datasets/{v['groups']} groups" for t, v in c[h].items())
+            for h in c))
+    tune_fams = [f for f in families if covered(cov[f]["tuning"])]
+    tested = [f for f in families if covered(cov[f]["evaluation"])]
+    print(f"tuned on: {', '.join(tune_fams)}; evaluated: {', '.join(tested)}")
+    return cov, tune_fams, tested
+
+
 def _parse(argv):
     ap = argparse.ArgumentParser(description="realdata benchmark: evaluate strategies")
     ap.add_argument("--skip-build", action="store_true",
@@ -459,8 +493,9 @@ def main(argv=None) -> int:
     n_groups = (len({groups[i] for i in tune_ids}), len({groups[i] for i in eval_ids}))
     print(f"{len(groups)} datasets in {len(set(groups.values()))} groups: tuning half "
           f"{len(tune_ids)} datasets ({n_groups[0]} groups), evaluation half "
-          f"{len(eval_ids)} ({n_groups[1]} groups); families: {', '.join(families)}")
-    grid = tune(tables, fps, groups, tune_ids, families)
+          f"{len(eval_ids)} ({n_groups[1]} groups)")
+    cov, tune_fams, families = _coverage_report(tables, groups, families, tune_ids, eval_ids)
+    grid = tune(tables, fps, groups, tune_ids, tune_fams)
     print("\nTuning half, mean regret@5 over (family, task) cells (grid, best first):")
     print(grid.to_string(index=False, float_format=lambda v: f"{v:.3f}"))
     tuned = tuned_strategy(grid.iloc[0])
@@ -470,7 +505,8 @@ def main(argv=None) -> int:
            "evaluation_half": {"datasets": len(eval_ids), "groups": n_groups[1]},
            "default_strategy": default_strategy(), "tuned": grid.iloc[0].to_dict(),
            "grid": grid.to_dict(orient="records"),
-           "strategies": [s.name for s in strategies], "families": {}}
+           "strategies": [s.name for s in strategies], "coverage": cov,
+           "tuned_on": tune_fams, "families": {}}
     halves = [("evaluation", eval_ids)] + ([("tuning", tune_ids)] if a.tuning_half else [])
     for family in families:
         out["families"][family] = {}
