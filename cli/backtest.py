@@ -9,7 +9,7 @@ import click
 from cli.common import family_option, handle_errors, json_option, kb_option, open_history
 from cli.output import emit_json, fmt, table
 from cli.progress import CountProgressBar
-from warmstart.backtest import DEFAULT_KS, backtest, check_plot_output, plot_regret
+from warmstart.backtest import DEFAULT_KS, backtest, check_plot_output, plot_regret, verdict
 from warmstart.errors import BadInputError
 from warmstart.strategies import STRATEGIES
 
@@ -70,6 +70,8 @@ def backtest_cmd(family, ks, strategies, metric, random_repeats, seed, plot_file
                      f"{100 * r['predicted_share']:.0f}%"])
     click.echo(table(rows, ["strategy", "k", "mean", "std", "IQR", "beats random",
                             "predicted lookups"], align="lrrrrrr"))
+    for line in verdict(result):
+        click.echo(line)
     if result.skipped:
         click.echo(f"skipped (best = median): {', '.join(result.skipped)}")
     if plot_file is not None:

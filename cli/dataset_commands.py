@@ -191,6 +191,9 @@ def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strateg
     click.echo(f"{plural(len(found), 'starting configuration')} for {family} "
                f"({found[0].strategy}" + (f", metric {used}" if used else "") + "); "
                "norm. score: 1 = best trial of its study")
+    if found[0].choice is not None:
+        c = found[0].choice
+        click.echo(f"auto chose {c['chosen']} on {c['datasets']} datasets ({c['rule']})")
     _echo_suggestions(found)
     click.echo("distance: scaled over the datasets with a study of this family, so it can "
                "differ from 'similar', which scales over every dataset of the task")
@@ -198,19 +201,31 @@ def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strateg
 
 
 def _echo_suggestions(found) -> None:
-    """The suggestions table; the "expected" column only when some suggestion has one."""
+    """The suggestions table; the "expected" column only when some suggestion has one,
+    "best on" and "adds" only when some suggestion explains its rank."""
     pooled = any(s.expected_normalised is not None for s in found)
+    explained = any(s.gain is not None for s in found)
     rows = [[s.rank, s.source_name or "-", s.distance, s.normalised_score, s.score]
             + ([None if s.expected_normalised is None else
                 fmt(s.expected_normalised) + ("*" if s.predicted else "")] if pooled else [])
+            + ([_best_on(s), s.gain] if explained else [])
             + [s.expected_fit_seconds, s.config or "(estimator defaults)"] for s in found]
     headers = ["#", "from dataset", "distance", "norm. score", "score"]
     headers += ["expected"] if pooled else []
+    headers += ["best on (norm. score)", "adds"] if explained else []
     headers += ["est. fit s", "configuration"]
-    click.echo(table(rows, headers, align="rlrrr" + ("r" if pooled else "") + "rl"))
+    click.echo(table(rows, headers, align="rlrrr" + ("r" if pooled else "")
+                     + ("lr" if explained else "") + "rl"))
     if pooled:
         click.echo("expected: similarity-weighted mean norm. score over the nearest datasets "
                    "(* = partly predicted by surrogates)")
     if any(s.source_name is None or s.expected_fit_seconds is None for s in found):
         click.echo("-: none (a configuration not taken from a past study has no source, "
                    "distance or score; a fit time without past fits is not estimated)")
+    if explained:
+        click.echo("best on: datasets where it was run and scored highest; adds: its gain in "
+                   "the list's objective over the suggestions above it")
+
+
+def _best_on(s) -> str:
+    return ", ".join(f"{b['name']} {fmt(b['normalised'])}" for b in s.best_on[:2]) or "-"

@@ -129,7 +129,39 @@ class BacktestResult:
         return {"family": self.family, "ks": list(self.ks), "strategies": self.strategies,
                 "metrics": self.metrics, "summary": self.summary(),
                 "lookups": self.lookups, "skipped": self.skipped,
+                "verdict": verdict(self),
                 "per_dataset": self.per_dataset.to_dict(orient="records")}
+
+
+SMALL_SAMPLE = 15
+
+
+def verdict(result: BacktestResult, k: int = 5) -> list[str]:
+    """One line per task of ``result``: which strategy wins at ``k`` (the nearest scored
+    k when ``k`` was not), by how much over the runner-up and random search, over how many
+    held-out datasets; a warning when fewer than ``SMALL_SAMPLE`` datasets were held out.
+    """
+    k = min(result.ks, key=lambda x: (abs(x - k), x))
+    d = result.per_dataset[result.per_dataset["k"] == k]
+    lines = []
+    for task in sorted(d["task"].unique()):
+        mean = d[d["task"] == task].groupby("strategy")["regret"].mean().dropna()
+        n = int(d[d["task"] == task]["dataset_id"].nunique())
+        if mean.empty:
+            continue
+        order = mean.sort_values(kind="stable")
+        line = f"{result.family} {task}: {order.index[0]} wins at k={k}"
+        line += f" (mean regret {order.iloc[0]:.3f}"
+        if len(order) > 1:
+            line += f"; {order.iloc[1] - order.iloc[0]:.3f} below {order.index[1]}"
+        if RANDOM in mean.index and RANDOM not in order.index[:2]:
+            line += f", {mean[RANDOM] - order.iloc[0]:.3f} below {RANDOM}"
+        line += f") over {n} held-out datasets"
+        if n < SMALL_SAMPLE:
+            line += (f"; warning: small sample (< {SMALL_SAMPLE} datasets), the "
+                     "difference may be noise")
+        lines.append(line)
+    return lines
 
 
 def _stat(fn, r) -> float | None:
@@ -463,5 +495,5 @@ def plot_regret(result: BacktestResult, path, title: str | None = None) -> None:
         plt.close(fig)
 
 
-__all__ = ["DEFAULT_KS", "BacktestResult", "backtest", "backtest_tables", "check_plot_output",
-           "plot_regret"]
+__all__ = ["DEFAULT_KS", "SMALL_SAMPLE", "BacktestResult", "backtest", "backtest_tables",
+           "check_plot_output", "plot_regret", "verdict"]

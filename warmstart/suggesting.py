@@ -17,6 +17,7 @@ from __future__ import annotations
 
 from collections.abc import Collection, Mapping
 from dataclasses import replace
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -70,7 +71,8 @@ def suggestion_context(query: Fingerprint, family: Family, studies: pd.DataFrame
                        names: Mapping[str, str], *, metric: str | None = None,
                        exclude: Collection[str] = (), space: Any = None, seed: int = 0,
                        candidates: list[dict[str, Any]] | None = None,
-                       surrogates: SurrogateCache | None = None) -> SuggestContext:
+                       surrogates: SurrogateCache | None = None,
+                       cache_dir: str | None = None) -> SuggestContext:
     """The strategies' input for ``query``: the history's answer, set up once.
 
     Parameters
@@ -97,6 +99,8 @@ def suggestion_context(query: Fingerprint, family: Family, studies: pd.DataFrame
         Configurations every strategy must choose from.
     surrogates : SurrogateCache, optional
         A cache to share with other contexts on the same history.
+    cache_dir : str, optional
+        Directory for strategies' JSON caches (``auto``'s choices).
     """
     task = query.task
     metric = choose_metric(studies, task, metric)
@@ -114,7 +118,8 @@ def suggestion_context(query: Fingerprint, family: Family, studies: pd.DataFrame
         neighbours=nearest(query, same_task, names, k=None), studies=studies,
         trials=TrialIndex(trials, full), dataset_rows=dataset_rows(fps), seed=seed,
         restricted=restriction is not None, candidates=candidates,
-        surrogates=SurrogateCache() if surrogates is None else surrogates)
+        surrogates=SurrogateCache() if surrogates is None else surrogates,
+        fingerprints=same_task, cache_dir=cache_dir)
 
 
 def ranked(strategy: Strategy, ctx: SuggestContext, k: int,
@@ -151,7 +156,7 @@ def suggest(kb: Any, query: Fingerprint, family: Family, strategy: Strategy, *, 
         # configs stay JSON text until a strategy reads them (most read a few rows)
         prepare_trials(t["trials"], studies, parse_configs=False),
         kb.fingerprints(datasets), dict(zip(datasets["dataset_id"], datasets["name"])),
-        metric=metric, space=space, seed=seed,
+        metric=metric, space=space, seed=seed, cache_dir=str(Path(kb.path) / ".cache"),
         surrogates=SurrogateCache(PredictionStore(kb.path)))  # predictions kept on disk
     return ranked(strategy, ctx, k, max_fit_seconds)
 

@@ -84,6 +84,13 @@ class Suggestion:
     ``support``, one entry per source: ``{"dataset_id", "name", "weight", "normalised",
     "predicted"}``. ``predicted`` is True when any of those values comes from a
     surrogate model rather than from trials actually run.
+
+    Why it is at its rank: ``best_on`` lists the datasets where this configuration was
+    actually run and scored highest (``{"dataset_id", "name", "normalised"}``, best
+    first; the source trial comes from the first), and ``gain`` is what it adds to the
+    portfolio objective of the suggestions above it (weighted mean over the sources of
+    the best normalised score listed so far). ``choice`` is set by ``auto``: the strategy
+    it chose, on how many datasets, their mean regrets and the rule.
     """
 
     rank: int
@@ -102,12 +109,17 @@ class Suggestion:
     predicted: bool = False
     expected_normalised: float | None = None
     support: tuple[dict[str, Any], ...] = ()
+    gain: float | None = None
+    best_on: tuple[dict[str, Any], ...] = ()
+    choice: dict[str, Any] | None = None
 
     def to_dict(self) -> dict[str, Any]:
         d = dict(self.__dict__)
         d["support"] = [dict(s) for s in self.support]
+        d["best_on"] = [dict(s) for s in self.best_on]
+        d["choice"] = None if self.choice is None else json.loads(json.dumps(self.choice))
         for key in ("distance", "score", "normalised_score", "fit_seconds",
-                    "expected_fit_seconds", "expected_normalised"):
+                    "expected_fit_seconds", "expected_normalised", "gain"):
             d[key] = finite_or_none(d[key])
         return d
 

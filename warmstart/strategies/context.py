@@ -60,6 +60,12 @@ class SuggestContext:
     surrogates : SurrogateCache
         Fitted per-study surrogates; shared between contexts by the backtest, since a
         study's surrogate does not depend on the query.
+    fingerprints : mapping
+        Dataset id -> stored fingerprint of the studies' datasets (strategies that
+        model across datasets, or hold datasets out to choose, read them).
+    cache_dir : str, optional
+        Where strategies may keep JSON caches of the history (``<history>/.cache``);
+        None keeps them in memory only.
     """
 
     query: Fingerprint
@@ -73,6 +79,8 @@ class SuggestContext:
     restricted: bool = False
     candidates: list[dict[str, Any]] | None = None
     surrogates: SurrogateCache = field(default_factory=SurrogateCache)
+    fingerprints: Mapping[str, Fingerprint] = field(default_factory=dict)
+    cache_dir: str | None = None
 
     @cached_property
     def full_space(self) -> SearchSpace:

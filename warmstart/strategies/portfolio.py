@@ -26,6 +26,10 @@ Two variants:
   shared equally by its studies.
 * dataset-agnostic (``global-portfolio``): every dataset in the history, uniform
   weights - one list for all datasets, the baseline the weighted variant must beat.
+* blend (``shrink`` = ``s`` in (0, 1], ``blend-portfolio``): the similarity weights
+  shrunk towards uniform weights over every dataset, ``(1 - s) w + s / n``, so the
+  list moves continuously from the neighbours' (``s = 0``) to the dataset-agnostic one
+  (``s = 1``); ``auto`` chooses ``s`` per family on the history.
 
 Candidates are the configurations of the sources' trials (brought into the search
 space, de-duplicated), or ``ctx.candidates`` when given. Both variants first place
@@ -41,6 +45,7 @@ import numpy as np
 
 from warmstart.strategies.base import Suggestion
 from warmstart.strategies.context import SuggestContext
+from warmstart.strategies.explain import observed_support, pick_source
 
 MAX_SUPPORT = 10
 
@@ -66,8 +71,9 @@ def dataset_weights(distances: np.ndarray, temperature: float) -> np.ndarray:
     return w / w.sum()
 
 
-def greedy_order(P: np.ndarray, w: np.ndarray, k: int, first: int | None = None) -> list[int]:
-    """Indices of ``k`` candidates picked greedily (see the module docstring).
+def greedy_steps(P: np.ndarray, w: np.ndarray, k: int, first: int | None = None
+                 ) -> tuple[list[int], list[float], np.ndarray]:
+    """The greedy picks (see the module docstring), what each adds, and to which source.
 
     Parameters
     ----------
@@ -76,9 +82,20 @@ def greedy_order(P: np.ndarray, w: np.ndarray, k: int, first: int | None = None)
     k : int
     first : int, optional
         A candidate forced into first place.
+
+    Returns
+    -------
+    order : list of int
+        Candidate indices, at most ``k``.
+    gains : list of float
+        Rise of the objective ``sum_j w_j max(b_j, P[c, j])`` at each pick.
+    contributions : ndarray of shape (len(order), n_sources)
+        ``w_j * max(0, P[c, j] - b_j)`` of each pick: where its gain comes from.
     """
     n = P.shape[0]
     chosen: list[int] = []
+    gains: list[float] = []
+    parts = []
     b = np.zeros(P.shape[1])
     mean = P @ w
     free = np.ones(n, dtype=bool)
@@ -92,10 +109,43 @@ def greedy_order(P: np.ndarray, w: np.ndarray, k: int, first: int | None = None)
             # exact ties within float noise go to the higher weighted mean
             tied = np.flatnonzero(gain >= top - 1e-12)
             i = int(tied[np.argmax(mean[tied])])
+        part = w * np.maximum(P[i] - b, 0.0)
         chosen.append(i)
+        gains.append(float(part.sum()))
+        parts.append(part)
         free[i] = False
         b = np.maximum(b, P[i])
-    return chosen
+    return chosen, gains, np.array(parts).reshape(len(chosen), P.shape[1])
+
+
+def greedy_order(P: np.ndarray, w: np.ndarray, k: int, first: int | None = None) -> list[int]:
+    """Indices of ``k`` candidates picked greedily (see :func:`greedy_steps`)."""
+    return greedy_steps(P, w, k, first)[0]
+
+
+def candidate_configs(ctx: SuggestContext, seen: list[dict]) -> tuple[list[str], list[dict]]:
+    """Candidates in canonical-key order: ``ctx.candidates`` when given, else ``seen``,
+    brought into ``ctx.space`` and de-duplicated; (keys, configurations)."""
+    cands: dict[str, dict] = {}
+    for c in ctx.candidates if ctx.candidates is not None else seen:
+        clipped = ctx.space.clip(c)
+        if clipped is not None:
+            cands.setdefault(ctx.key(clipped), clipped)
+    keys = sorted(cands)
+    return keys, [cands[key] for key in keys]
+
+
+def exact_first(ctx: SuggestContext, row_of: dict[str, int]) -> int | None:
+    """The candidate row (``row_of``: canonical key -> row) of the best trial of a
+    distance-0 dataset that is a candidate, or None."""
+    nb = ctx.exact_match()
+    if nb is None:
+        return None
+    for config in ctx.trials.configs_at(ctx.dataset_positions(nb.dataset_id)):
+        clipped = ctx.space.clip(config)
+        if clipped is not None and ctx.key(clipped) in row_of:
+            return row_of[ctx.key(clipped)]
+    return None
 
 
 class GreedyPortfolio:
@@ -120,6 +170,10 @@ class GreedyPortfolio:
         self.surrogate = surrogate
         self.weighted = weighted
         self.description = description or (
+            f"greedy complementary list over every dataset, similarity weights of the "
+            f"{neighbours} nearest shrunk by {self.shrink:g} towards uniform; unseen "
+            f"scores from per-study {surrogate} surrogates"
+            if weighted and self.shrink else
             f"greedy complementary list over the {neighbours} nearest datasets, "
             f"similarity-weighted; unseen scores from per-study {surrogate} surrogates"
             if weighted else
@@ -156,17 +210,9 @@ class GreedyPortfolio:
         pos = np.unique(np.concatenate([ctx.trials.study_positions(sid)
                                         for sid in set(unit_ids)]))
         src = ctx.trials.rows_at(pos).assign(key=ctx.trials.keys_at(pos))
-        # candidates: canonical key -> configuration inside the (user) space
-        cands: dict[str, dict] = {}
-        pool = ctx.candidates if ctx.candidates is not None else list(src["config"])
-        for c in pool:
-            clipped = ctx.space.clip(c)
-            if clipped is not None:
-                cands.setdefault(ctx.key(clipped), clipped)
-        if not cands:
+        keys, configs = candidate_configs(ctx, list(src["config"]))
+        if not keys:
             return []
-        keys = sorted(cands)
-        configs = [cands[key] for key in keys]
         row_of = {key: i for i, key in enumerate(keys)}
         col_of = {sid: j for j, sid in enumerate(unit_ids)}
         P = np.full((len(keys), len(units)), np.nan)
@@ -181,35 +227,26 @@ class GreedyPortfolio:
                 P[missing, j] = ctx.predict(sid, self.surrogate,
                                             [configs[i] for i in missing],
                                             [keys[i] for i in missing])
-        first = self._first(ctx, row_of)
-        order = greedy_order(P, w, k, first)
-        return [self._suggestion(ctx, src, units, w, P, seen, configs[i], keys[i], i, r)
+        order, gains, parts = greedy_steps(P, w, k, exact_first(ctx, row_of))
+        return [self._suggestion(ctx, src, units, w, P, seen, configs[i], keys[i], i, r,
+                                 gains[r - 1], parts[r - 1])
                 for r, i in enumerate(order, 1)]
 
-    def _first(self, ctx: SuggestContext, row_of: dict[str, int]) -> int | None:
-        nb = ctx.exact_match()
-        if nb is None:
-            return None
-        positions = ctx.dataset_positions(nb.dataset_id)
-        for config in ctx.trials.configs_at(positions):
-            clipped = ctx.space.clip(config)
-            if clipped is not None and ctx.key(clipped) in row_of:
-                return row_of[ctx.key(clipped)]
-        return None
-
-    def _suggestion(self, ctx, src, units, w, P, seen, config, key, i, rank) -> Suggestion:
-        mean = float(P[i] @ w)
-        observed = [j for j in np.argsort(-w, kind="stable") if seen[i, j]]
+    def _suggestion(self, ctx, src, units, w, P, seen, config, key, i, rank, gain,
+                    part) -> Suggestion:
         support = tuple(
             {"dataset_id": units[j][0].dataset_id, "name": units[j][0].name,
              "weight": float(w[j]), "normalised": float(P[i, j]),
              "predicted": not bool(seen[i, j])}
             for j in np.argsort(-w, kind="stable")[:MAX_SUPPORT])
-        common = dict(rank=rank, expected_normalised=mean,
-                      predicted=not bool(seen[i].all()), support=support)
-        if not observed:  # only possible with ctx.candidates: nobody ran it
+        # datasets where it was run, those it added most to the objective first
+        prefer = [units[j][0].dataset_id for j in np.argsort(-part, kind="stable")
+                  if seen[i, j] and part[j] > 0]
+        best_on = observed_support(ctx, src, key, prefer)
+        common = dict(rank=rank, expected_normalised=float(P[i] @ w),
+                      predicted=not bool(seen[i].all()), support=support, gain=gain,
+                      best_on=best_on)
+        row, nb = pick_source(ctx, src, key, best_on)
+        if row is None:  # only possible with ctx.candidates: nobody ran it
             return Suggestion(config=config, strategy=self.name, metric=None, **common)
-        nb, sid = units[observed[0]]
-        t = src[(src["study_id"] == sid) & (src["key"] == key)]
-        row = t.sort_values("normalised", ascending=False, kind="stable").iloc[0]
         return ctx.from_trial(self.name, row, nb, config, **common)
