@@ -110,10 +110,23 @@ def kill_rounds(kb: KnowledgeBase, fp: Fingerprint, rounds: int, seed: int) -> N
                           "leftovers": new}), flush=True)
 
 
+def warm_imports(fp: Fingerprint) -> None:
+    """Check one study's trials in this process, writing nothing, so that the modules a
+    log imports lazily (the estimator's for its parameter checks) are loaded before any
+    fork: a killed child then dies inside the write, not inside an import."""
+    from warmstart.families import get_family
+    from warmstart.metrics import DEFAULT_METRIC, resolve_metric
+    from warmstart.trials import check_trials
+
+    check_trials(trials("warm-up", 0), get_family("random_forest"), fp.task,
+                 resolve_metric(DEFAULT_METRIC[fp.task], None))
+
+
 def main(argv: list[str]) -> None:
     mode, kb_path, fp_path = argv[:3]
     kb = KnowledgeBase(kb_path)
     fp = Fingerprint.from_json_file(fp_path)
+    warm_imports(fp)
     if mode == "write":
         log_loop(kb, fp, argv[3], int(argv[4]))
     elif mode == "fork-write":
