@@ -90,29 +90,36 @@ def _echo_catalogue(as_json: bool) -> None:
 @click.option("--metric", default=None,
               help="scikit-learn scorer name [default: balanced_accuracy or r2].")
 @direction_options
-@click.option("--name", default=None, help="Label for the study [default: file name].")
+@click.option("--name", default=None,
+              help="Label for the study, and the dataset's name: renames a dataset "
+                   "already in the history [default: its name, else the file name].")
 @cluster_option
 @kb_option
 @json_option
 @handle_errors
-def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, direction,
+def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, better,
             name, cluster, kb_path, as_json) -> None:
     """Log a finished study (its trials) into the team history."""
     kb = open_history(kb_path)
     fp = query_fingerprint(data, target, task, fingerprint_file, cluster)
+    # DATA goes along so that its file name labels a new dataset, as when the library
+    # reads DATA itself (the fingerprint computed here is the one used)
     study = kb.log(
-        target=target, family=family, trials=trials_file, metric=metric,
-        direction=direction, fingerprint_of=fp, task=task,
-        # the file's name labels the study, as when the library reads DATA itself
-        name=name or (Path(data).stem if fingerprint_file is None else None))
+        None if fingerprint_file is not None else data, target=target, family=family,
+        trials=trials_file, metric=metric, better=better, fingerprint_of=fp, task=task,
+        name=name)
     for w in fp.warnings:
         click.echo(f"warning: {w}", err=True)
     if as_json:
         emit_json(study.to_dict())
         return
+    if study.already_logged:
+        click.echo(f"already logged as {study.study_id} (same dataset, family, metric and "
+                   "trials); nothing written")
+        return
     what = "new dataset" if study.dataset_is_new else "dataset already in the history"
     click.echo(f"logged study {study.study_id[:12]} ({study.family}, {study.task}, "
-               f"{study.metric}): {study.n_trials} trials, {study.n_ok} ok, best "
+               f"{study.metric}): {study.trial_count} trials, {study.n_ok} ok, best "
                f"{fmt(study.best_score)}; {what} {study.dataset_id} '{study.label}'")
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import sys
 from pathlib import Path
 
@@ -150,3 +151,79 @@ def kb_migrate_cmd(kb_path, as_json) -> None:
     click.echo(f"migrated {out['path']} from format {out['from_version']} to "
                f"{out['to_version']}: {out['datasets']} datasets, {out['studies']} studies, "
                f"{out['trials']} trials; old file kept at {out['backup']}")
+
+
+# -- the studies as records ---------------------------------------------------------------
+def _study_line(s) -> list:
+    return [s["study_id"][:12], s["family"], s["metric"], s["better"], s["trial_count"],
+            s["ok"], s["best_score"], s["created_at"][:10], s["label"]]
+
+
+_STUDY_HEAD = ["study", "family", "metric", "better", "trials", "ok", "best", "logged",
+               "label"]
+
+
+@kb_group.command("list")
+@kb_option
+@json_option
+@handle_errors
+def kb_list_cmd(kb_path, as_json) -> None:
+    """The datasets with their studies: ids, family, metric, trials, best score, date."""
+    datasets = open_history(kb_path).list_studies()
+    if as_json:
+        emit_json(datasets)
+        return
+    if not datasets:
+        click.echo("the history holds no studies yet (add one with 'warmstart log')")
+        return
+    rows = [[d["name"], d["dataset_id"][:12], *_study_line(s)]
+            for d in datasets for s in d["studies"]]
+    click.echo(table(rows, ["dataset", "id", *_STUDY_HEAD], align="lllllrrrll"))
+    n = sum(len(d["studies"]) for d in datasets)
+    click.echo(f"{len(datasets)} datasets, {n} studies")
+
+
+@kb_group.command("show")
+@click.argument("ref", metavar="STUDY|DATASET")
+@kb_option
+@json_option
+@handle_errors
+def kb_show_cmd(ref, kb_path, as_json) -> None:
+    """One study (its trials) or one dataset (its studies), by id, unique id prefix or
+    name."""
+    out = open_history(kb_path).show(ref)
+    if as_json:
+        emit_json(out)
+        return
+    if out["kind"] == "dataset":
+        click.echo(f"dataset {out['dataset_id']} '{out['name']}': {out['task']}, target "
+                   f"{out['target']}, {len(out['meta_features'])} meta-features, first "
+                   f"logged {out['created_at']}")
+        click.echo(table([_study_line(s) for s in out["studies"]], _STUDY_HEAD,
+                         align="llllrrrll"))
+        return
+    click.echo(f"study {out['study_id']} '{out['label']}' on dataset {out['dataset_id']} "
+               f"'{out['dataset_name']}': {out['family']}, {out['task']}, {out['metric']} "
+               f"({out['better']} is better), {out['trial_count']} trials, "
+               f"{out['source']}, logged {out['created_at']}")
+    rows = [[t["trial_index"], t["status"], t["score"], t["fit_seconds"],
+             json.dumps(t["config"], sort_keys=True)] for t in out["trials"]]
+    click.echo(table(rows, ["trial", "status", "score", "fit s", "configuration"],
+                     align="rlrrl"))
+
+
+@kb_group.command("delete")
+@click.argument("ref", metavar="STUDY")
+@kb_option
+@json_option
+@handle_errors
+def kb_delete_cmd(ref, kb_path, as_json) -> None:
+    """Delete one STUDY (id, unique id prefix or label): every reader skips it from now
+    on, and 'kb compact' drops its rows."""
+    out = open_history(kb_path).delete(ref)
+    if as_json:
+        emit_json(out)
+        return
+    click.echo(f"deleted study {out['study_id']} ({out['family']}, {out['metric']}, "
+               f"{out['trial_count']} trials) of dataset {out['dataset_id']} "
+               f"'{out['dataset_name']}'")

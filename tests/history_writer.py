@@ -26,6 +26,7 @@ import signal
 import sys
 import time
 import traceback
+import zlib
 from pathlib import Path
 
 from warmstart.fingerprint import Fingerprint
@@ -34,8 +35,10 @@ from warmstart.storage import PAUSE_ENV, PAUSE_SECONDS_ENV, PAUSE_STEPS, TEMP_PR
 
 
 def trials(tag: str, i: int) -> list[dict]:
-    # Small, distinct per study, so a mixed-up trial would be noticed.
-    return [{"n_estimators": 10 + (i % 50) + j, "max_depth": 2 + j, "score": 0.5 + 0.001 * j}
+    # Small, distinct per study (writer tag and number), so a mixed-up trial would be
+    # noticed and no study is refused as already logged.
+    shift = (zlib.crc32(tag.encode()) % 997) * 1e-7
+    return [{"n_estimators": 10 + i + j, "max_depth": 2 + j, "score": 0.5 + 0.001 * j + shift}
             for j in range(3)]
 
 

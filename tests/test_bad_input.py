@@ -165,8 +165,8 @@ CASES = [  # id, builder(w) -> CLI args, substring the error must contain
     ("trials file is a PNG", lambda w: w.log(None, w.write("t.png", PNG)),
      "not a text table"),
     # metric
-    ("unknown metric without a direction",
-     lambda w: w.log(None, None, "--metric", "team_lift"), "say its direction"),
+    ("unknown metric without which way is better",
+     lambda w: w.log(None, None, "--metric", "team_lift"), "say which way is better"),
     ("scikit-learn scorer declared lower-is-better",
      lambda w: w.log(None, None, "--metric", "accuracy", "--lower-is-better"),
      "higher-is-better"),

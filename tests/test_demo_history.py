@@ -73,7 +73,7 @@ def test_committed_history_is_complete(committed):
     assert studies["family"].nunique() >= 2
     counts = trials.groupby("study_id").size()
     assert (studies["study_id"].map(counts).fillna(0).astype(int)
-            == studies["n_trials"]).all()
+            == studies["trial_count"]).all()
     # Every dataset the generator declares is there, with one study per declared family.
     expected = {(gen.LABEL_PREFIX + s.name, f) for s in gen.DATASETS.values()
                 for f in s.families}
@@ -192,4 +192,4 @@ def test_example_trials_file_logs(tmp_path):
                                "--json"])
     assert res.exit_code == 0, res.output
     logged = json.loads(res.stdout)  # stderr has the fingerprint warnings
-    assert logged["n_trials"] == len(trials) and logged["n_ok"] == len(trials) - 1
+    assert logged["trial_count"] == len(trials) and logged["n_ok"] == len(trials) - 1

@@ -43,7 +43,7 @@ def assert_consistent(kb: KnowledgeBase) -> dict:
     t = kb.tables()
     studies, trials = t["studies"], t["trials"]
     counts = trials.groupby("study_id").size()
-    assert (studies["study_id"].map(counts).fillna(0) == studies["n_trials"]).all()
+    assert (studies["study_id"].map(counts).fillna(0) == studies["trial_count"]).all()
     assert trials["study_id"].isin(studies["study_id"]).all()
     assert studies["dataset_id"].isin(t["datasets"]["dataset_id"]).all()
     assert not studies["study_id"].duplicated().any()

@@ -34,14 +34,14 @@ def test_log_search_bare_and_pipeline_then_suggest_inside_space(tmp_path):
         SVC(), {"C": loguniform(1e-4, 1e5), "gamma": ["scale", 1e-3, 1e-2]},
         n_iter=6, cv=3, random_state=0).fit(X, y)
     logged = kb.log_search(search, X, y, name="cancer-svm")
-    assert logged.n_trials == 6 and logged.family == "svm_rbf"
+    assert logged.trial_count == 6 and logged.family == "svm_rbf"
     assert logged.metric == "accuracy"  # reference: scikit-learn, a classifier's score()
     pipe = Pipeline([("scale", StandardScaler()), ("model", SVC())])
     halving = HalvingRandomSearchCV(
         pipe, {"model__C": loguniform(1e-4, 1e5)}, n_candidates=6, cv=3, random_state=0,
         scoring="balanced_accuracy").fit(X, y)
     logged2 = kb.log_search(halving, X, y)
-    assert logged2.n_trials == 6 and logged2.metric == "balanced_accuracy"
+    assert logged2.trial_count == 6 and logged2.metric == "balanced_accuracy"
     trials = kb.tables()["trials"]
     assert len(trials) == 12  # every trial landed
     found = kb.suggest(X.assign(target=y.to_numpy()), target="target", family="svm_rbf",

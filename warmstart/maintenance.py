@@ -1,4 +1,4 @@
-"""Keeping a team history healthy: info, check, repair, compact, migrate, export, import.
+"""Keeping a team history healthy: info, check, repair, compact, export, import.
 
 All of these work beside live readers and writers, without locks (see
 :mod:`warmstart.storage` for the file rules they rely on).
@@ -9,19 +9,20 @@ All of these work beside live readers and writers, without locks (see
   temporary and orphan files older than a grace period (leftovers of killed writers;
   younger ones may belong to a writer still running) and moves unreadable files to
   ``<history>/quarantine/``. It never touches committed rows.
-* :func:`compact` merges each table's files into one ``merged-*.parquet`` file. It writes
-  the merged file first, then deletes only the files it listed before merging and whose
-  every row the merged file holds; readers de-duplicate by key meanwhile, and a file a
-  writer commits during compaction is not deleted.
+* :func:`compact` merges each table's files into one ``merged-*.parquet`` file, leaving
+  out the rows of deleted studies (those with a tombstone, see :mod:`warmstart.records`).
+  It writes the merged file first, then deletes only the files it listed before merging
+  whose every row the merged file holds or belongs to a deleted study; readers
+  de-duplicate by key and skip deleted studies meanwhile, and a file a writer commits
+  during compaction is not deleted. Tombstones are merged too, never dropped.
 * :func:`export` writes one portable ZIP file (no compression: Parquet is already
   compressed) holding ``warmstart-export.json`` (kind, format version, counts, content
-  hash) and ``datasets.parquet``, ``studies.parquet``, ``trials.parquet``.
-  :func:`import_` merges such a file: studies already present, by id or by content (same
-  dataset, family, task, metric and trials), are skipped, so importing twice adds nothing.
-* :func:`migrate` converts the format-0 layout (one flat ``trials.parquet``: a row per
-  trial, fingerprints in ``fp_<meta-feature>`` columns, see :data:`FORMAT0_COLUMNS`) to
-  the current one, in place; the new marker is the commit point and the old file is kept
-  under ``backup-format-0/``.
+  hash) and ``datasets.parquet``, ``studies.parquet``, ``trials.parquet``; deleted
+  studies are left out. :func:`import_` merges such a file: studies already present, by
+  id or by content (same dataset, family, task, metric and trials), and studies deleted
+  here are skipped, so importing twice adds nothing. Exports of format 1 are converted
+  as they are read.
+* ``migrate`` (older formats to this one) is in :mod:`warmstart.migrations`.
 
 Nothing is ever loaded with pickle: tables are Parquet, configurations JSON.
 """
@@ -33,7 +34,6 @@ import io
 import json
 import math
 import os
-import shutil
 import zipfile
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
@@ -49,6 +49,8 @@ from warmstart.errors import BadInputError
 from warmstart.families import FAMILIES
 from warmstart.fingerprint import KNOWN_CATALOGUE_VERSIONS
 from warmstart.layout import (
+    DELETION_SCHEMA,
+    DELETIONS,
     FORMAT_FILE,
     FORMAT_VERSION,
     KEYS,
@@ -56,10 +58,10 @@ from warmstart.layout import (
     dedupe,
     marker_is_current,
     read_marker,
-    write_marker,
+    table_schema,
 )
-from warmstart.metrics import MAXIMIZE, MINIMIZE
-from warmstart.spaces import config_key
+from warmstart.metrics import HIGHER, LOWER
+from warmstart.records import deleted_ids, studies_from_format1
 from warmstart.storage import (
     ROW_GROUP_ROWS,
     age_seconds,
@@ -73,7 +75,6 @@ from warmstart.storage import (
     write_bytes_atomic,
 )
 from warmstart.tasks import TASKS
-from warmstart.values import finite_or_none
 from warmstart.version import __version__
 
 if TYPE_CHECKING:  # annotations only: warmstart.history imports this module
@@ -173,17 +174,17 @@ def content_problems(datasets: pd.DataFrame, studies: pd.DataFrame, trials: pd.D
         ~studies["dataset_id"].isin(datasets["dataset_id"]), "study_id"])),
         "studies refer to a dataset that is not in the history")
     counts = trials.groupby("study_id").size()
-    short = studies[studies["n_trials"] != sid.map(counts).fillna(0).astype(int)]
+    short = studies[studies["trial_count"] != sid.map(counts).fillna(0).astype(int)]
     report.add("studies have all their trials", list(short["study_id"]),
                "studies do not have the number of trials they declare")
     report.add("trials belong to a study", sorted(set(trials.loc[
         ~trials["study_id"].isin(sid), "study_id"])), "trials of studies not in the history")
     report.add("known families", sorted(set(studies["family"]) - set(FAMILIES)),
                "unknown model families")
-    report.add("valid tasks and directions", list(studies.loc[
-        ~studies["task"].isin(TASKS) | ~studies["direction"].isin((MAXIMIZE, MINIMIZE))
+    report.add("valid tasks and better values", list(studies.loc[
+        ~studies["task"].isin(TASKS) | ~studies["better"].isin((HIGHER, LOWER))
         | studies["metric"].isna() | (studies["metric"] == ""), "study_id"]),
-        "studies with an invalid task, direction or metric")
+        "studies with an invalid task, better value or metric")
     ok = trials["status"] == "ok"
     score = trials["score"].to_numpy(dtype=float, na_value=np.nan)
     bad_score = trials[ok & ~np.isfinite(score)]
@@ -284,7 +285,7 @@ def _check_files(root: Path, repair: bool, report: CheckReport) -> bool:
     """Every file readable, with its table's schema (with ``repair``: bad ones moved to
     ``quarantine/``). Returns whether every remaining file is readable."""
     bad_files, n_files = [], 0
-    for table, schema in SCHEMAS.items():
+    for table, schema in (*SCHEMAS.items(), (DELETIONS, DELETION_SCHEMA)):
         for f in visible_files(root / table):
             n_files += 1
             why = _schema_mismatch(f, schema)
@@ -422,9 +423,11 @@ def info(kb: KnowledgeBase) -> dict[str, Any]:
 def compact(kb: KnowledgeBase) -> dict[str, Any]:
     """Merge each table's committed rows into one file, then delete the merged files.
 
-    Safe beside readers (they de-duplicate by key, and retry a listing when a file they
-    listed is gone) and writers (only files listed before merging, and whose every row
-    is in the merged file, are deleted; orphans and in-flight files are left alone).
+    Safe beside readers (they de-duplicate by key, skip deleted studies, and retry a
+    listing when a file they listed is gone) and writers (only files listed before
+    merging, and whose every row is in the merged file or belongs to a deleted study,
+    are deleted; orphans and in-flight files are left alone). Deleted studies' rows are
+    dropped; their tombstones are merged and kept.
 
     Returns
     -------
@@ -434,47 +437,67 @@ def compact(kb: KnowledgeBase) -> dict[str, Any]:
     """
     kb._check_writable()
     before = summary(kb)
+    gone = deleted_ids(kb.path)
     listed = {t: [(f, read_file(f, SCHEMAS[t])) for f in visible_files(kb.path / t)]
               for t in SCHEMAS}
     studies = dedupe(pa.concat_tables([tb for _f, tb in listed["studies"]])
                      if listed["studies"] else SCHEMAS["studies"].empty_table(), "studies")
-    removed = sum(_merge_table(kb.path / table, table, listed[table], studies)
+    removed = sum(_merge_table(kb.path / table, table, listed[table], studies, gone)
                   for table in ("datasets", "trials", "studies"))
+    removed += _merge_deletions(kb.path / DELETIONS)
     after = summary(kb)
     return {"path": str(kb.path), "before": before, "after": after, "removed": removed}
 
 
 def _merge_table(directory: Path, table: str, files: list[tuple[Path, pa.Table]],
-                 studies: pa.Table) -> int:
-    """Merge the committed rows of ``files`` (one table's, as listed) into one file, then
-    delete those whose every row it holds; returns how many were deleted."""
-    if len(files) <= 1:
-        return 0
+                 studies: pa.Table, gone: set[str]) -> int:
+    """Merge the committed rows of ``files`` (one table's, as listed) into one file,
+    leaving out the studies in ``gone``, then delete the files whose every row it holds
+    or left out on purpose; returns how many were deleted."""
     committed = set(studies.column("study_id").to_pylist())
+    live = studies.filter(pa.array(~np.isin(
+        np.asarray(studies.column("study_id").to_pylist(), dtype=object), list(gone)),
+        pa.bool_()))
     key_col = "dataset_id" if table == "datasets" else "study_id"
-    wanted = (set(studies.column("dataset_id").to_pylist()) if table == "datasets"
-              else committed)
+    wanted = set(live.column(key_col).to_pylist())
     # an uncommitted writer's file is not ours to merge, and stays even if its rows
     # are known
     ours = [(f, tb) for f, tb in files
             if (parsed := parse_log_name(f)) is None or parsed[0] in committed]
-    parts = [tb.filter(pa.array(np.isin(np.asarray(tb.column(key_col).to_pylist(),
-                                                   dtype=object), list(wanted)), pa.bool_()))
-             for _f, tb in ours]
-    merged = dedupe(pa.concat_tables(parts), table) if parts else None
-    if merged is None or merged.num_rows == 0:
+    kept = [tb.filter(pa.array(np.isin(np.asarray(tb.column(key_col).to_pylist(),
+                                                  dtype=object), list(wanted)), pa.bool_()))
+            for _f, tb in ours]
+    dropping = any(k.num_rows < tb.num_rows for k, (_f, tb) in zip(kept, ours))
+    if len(files) <= 1 and not dropping:
         return 0
-    if table == "trials":
-        merged = family_order(merged, studies)
-    write_atomic(merged, directory, batch_name("merged"), ROW_GROUP_ROWS)
-    have = set(_keys(merged, table))
+    merged = dedupe(pa.concat_tables(kept), table) if kept else None
+    have: set[tuple] = set()
+    if merged is not None and merged.num_rows:
+        if table == "trials":
+            merged = family_order(merged, live)
+        write_atomic(merged, directory, batch_name("merged"), ROW_GROUP_ROWS)
+        have = set(_keys(merged, table))
     removed = 0
-    for f, tb in ours:
-        if set(_keys(tb, table)) <= have:
+    for (f, _tb), k in zip(ours, kept):
+        if set(_keys(k, table)) <= have:
             f.unlink(missing_ok=True)
             removed += 1
     fsync_dir(directory)
     return removed
+
+
+def _merge_deletions(directory: Path) -> int:
+    """Merge the tombstone files into one (every tombstone is kept)."""
+    files = visible_files(directory)
+    if len(files) <= 1:
+        return 0
+    tables = [read_file(f, DELETION_SCHEMA) for f in files]
+    merged = dedupe(pa.concat_tables(tables), DELETIONS)
+    write_atomic(merged, directory, batch_name("merged"))
+    for f in files:
+        f.unlink(missing_ok=True)
+    fsync_dir(directory)
+    return len(files)
 
 
 def family_order(trials: pa.Table, studies: pa.Table) -> pa.Table:
@@ -560,30 +583,35 @@ def read_export(file: str | os.PathLike) -> tuple[dict[str, Any], dict[str, pa.T
             f"format versions 1 to {FORMAT_VERSION}: upgrade warmstart")
     tables = {}
     for t, blob in blobs.items():
+        schema = table_schema(t, version)
         try:
             raw = pq.read_table(pa.BufferReader(blob))
         except (OSError, pa.ArrowException) as exc:
             raise BadInputError(f"{src}: {t}.parquet is unreadable ({exc})") from None
-        missing = [f.name for f in SCHEMAS[t] if f.name not in raw.schema.names]
+        missing = [f.name for f in schema if f.name not in raw.schema.names]
         if missing:
             raise BadInputError(f"{src}: {t}.parquet lacks columns {', '.join(missing)}")
         try:
-            tables[t] = raw.select(SCHEMAS[t].names).cast(SCHEMAS[t])
+            tables[t] = raw.select(schema.names).cast(schema)
         except (pa.ArrowException, ValueError) as exc:
             raise BadInputError(f"{src}: {t}.parquet has the wrong column types ({exc})"
                                 ) from None
+    if version == 1:  # format-1 study rows, converted as kb migrate does
+        tables["studies"] = pa.Table.from_pandas(studies_from_format1(
+            tables["studies"].to_pandas(), tables["trials"].to_pandas()),
+            schema=SCHEMAS["studies"], preserve_index=False)
     return marker, tables
 
 
 def _signatures(studies: pd.DataFrame, trials: pd.DataFrame) -> pd.Series:
     """A content signature per study id (index): its dataset, family, task, metric,
-    direction, creation time and trials. Equal signatures mean the same study record,
+    better, creation time and trials. Equal signatures mean the same study record,
     even when it travelled under another id."""
     t = trials.sort_values(["study_id", "trial_index"])
     lines = (t["config"].astype(str) + "|" + t["score"].map(repr).astype(str) + "|"
              + t["status"].astype(str))
     per = lines.groupby(t["study_id"]).agg("\n".join)
-    head = studies[["dataset_id", "family", "task", "metric", "direction"]].astype(str).agg(
+    head = studies[["dataset_id", "family", "task", "metric", "better"]].astype(str).agg(
         "|".join, axis=1) + "|" + studies["created_at"].astype(str)
     body = studies["study_id"].map(per).fillna("").astype(str)
     sig = [hashlib.sha256((a + "\n" + b).encode()).hexdigest() for a, b in zip(head, body)]
@@ -610,7 +638,9 @@ def import_(kb: KnowledgeBase, file: str | os.PathLike) -> dict[str, Any]:
     kb._check_writable()
     have = kb.tables()
     new = frames["studies"]
-    same_id = new["study_id"].isin(have["studies"]["study_id"])
+    # a study deleted here stays deleted: its tombstone would hide it anyway
+    same_id = (new["study_id"].isin(have["studies"]["study_id"])
+               | new["study_id"].isin(deleted_ids(kb.path)))
     known_sigs = set(_signatures(have["studies"], have["trials"]))
     sigs = _signatures(new, frames["trials"])
     same_content = new["study_id"].map(sigs).isin(known_sigs) & ~same_id
@@ -627,106 +657,3 @@ def import_(kb: KnowledgeBase, file: str | os.PathLike) -> dict[str, Any]:
     return {"file": str(file), "studies_added": int(len(add)),
             "studies_already_present": int(len(new) - len(add)),
             "datasets_added": int(len(datasets)), "trials_added": int(len(trials))}
-
-
-# -- migrate ----------------------------------------------------------------------------
-FORMAT0_FILE = "trials.parquet"
-FORMAT0_COLUMNS = ("study", "logged_at", "dataset", "dataset_hash", "task", "target",
-                   "family", "metric", "direction", "catalogue_version", "params", "score",
-                   "fit_seconds", "status")
-FP_PREFIX = "fp_"
-
-
-def migrate(path: str | os.PathLike) -> dict[str, Any]:
-    """Convert a format-0 history at ``path`` to the current format, in place.
-
-    Format 0 (warmstart 0.0.x) kept one flat ``trials.parquet``: a row per trial with
-    the columns :data:`FORMAT0_COLUMNS` (``params`` a JSON object, ``study`` a label
-    unique per study) and one ``fp_<name>`` float column per meta-feature. Study ids are
-    derived from the study labels, so migrating again after an interruption gives the
-    same ids. The old file is moved to ``backup-format-0/`` once the new marker (the
-    commit point) is written.
-    """
-    root = Path(path)
-    marker, version = read_marker(root)
-    if version == FORMAT_VERSION:
-        return {"path": str(root), "from_version": version, "to_version": version,
-                "migrated": False, "datasets": 0, "studies": 0, "trials": 0}
-    if version != 0:
-        raise BadInputError(f"cannot migrate format version {version}; this warmstart "
-                            f"{__version__} migrates format 0 to {FORMAT_VERSION}")
-    if not os.access(root, os.W_OK):
-        raise BadInputError(f"history {root} is read-only; cannot migrate it")
-    src = root / FORMAT0_FILE
-    by = str(marker.get("created_by", "warmstart 0.0"))
-    tables = _from_format0(_read_format0(src), by.replace("warmstart ", ""))
-    _refuse_problems({t: v.to_pandas() for t, v in tables.items()}, src, 0)
-    for t in SCHEMAS:  # clear what an interrupted earlier migration wrote (never visible)
-        d = root / t
-        d.mkdir(exist_ok=True)
-        for f in visible_files(d):
-            f.unlink()
-    for t in ("datasets", "trials", "studies"):
-        write_atomic(tables[t], root / t, batch_name("migrated"))
-    write_marker(root, migrated_from={"format_version": 0, "created_by": by})
-    backup = root / "backup-format-0"
-    backup.mkdir(exist_ok=True)
-    shutil.move(str(src), str(backup / FORMAT0_FILE))
-    return {"path": str(root), "from_version": 0, "to_version": FORMAT_VERSION,
-            "migrated": True, **{t: int(tables[t].num_rows) for t in SCHEMAS},
-            "backup": str(backup / FORMAT0_FILE)}
-
-
-def _read_format0(src: Path) -> pd.DataFrame:
-    """The flat format-0 table, with every column :data:`FORMAT0_COLUMNS` names."""
-    try:
-        flat = pq.read_table(src).to_pandas()
-    except (OSError, pa.ArrowException) as exc:
-        raise BadInputError(f"cannot read the format-0 table {src}: {exc}") from None
-    missing = [c for c in FORMAT0_COLUMNS if c not in flat.columns]
-    if missing:
-        raise BadInputError(f"{src} is not a format-0 table (missing {', '.join(missing)})")
-    return flat
-
-
-def _format0_config(text: Any) -> str:
-    try:
-        config = json.loads(text)
-    except (TypeError, ValueError):
-        config = None
-    if not isinstance(config, dict):
-        raise BadInputError(f"format-0 params {str(text)[:40]!r} is not a JSON object")
-    return config_key(config)
-
-
-def _from_format0(flat: pd.DataFrame, tool_version: str) -> dict[str, pa.Table]:
-    fp_cols = [c for c in flat.columns if c.startswith(FP_PREFIX)]
-    flat = flat.reset_index(drop=True)
-    flat["logged_at"] = pd.to_datetime(flat["logged_at"], utc=True)
-    flat["trial_index"] = flat.groupby("study", sort=False).cumcount()
-    flat["dataset_id"] = flat["dataset_hash"].str[:16]
-    flat["study_id"] = [hashlib.sha256(f"format0:{s}".encode()).hexdigest()[:32]
-                        for s in flat["study"]]
-    first = flat.groupby("study", sort=False).head(1)
-    studies = pd.DataFrame({
-        "study_id": first["study_id"], "dataset_id": first["dataset_id"],
-        "family": first["family"], "task": first["task"], "metric": first["metric"],
-        "direction": first["direction"], "label": first["study"],
-        "n_trials": first["study"].map(flat["study"].value_counts()).astype("int32"),
-        "source": "log", "tool_version": tool_version, "created_at": first["logged_at"]})
-    ds = first.sort_values("logged_at", kind="stable").drop_duplicates("dataset_id")
-    meta = [json.dumps({c[len(FP_PREFIX):]: finite_or_none(v) for c, v in zip(fp_cols, row)},
-                       sort_keys=True)
-            for row in ds[fp_cols].to_numpy(dtype=float)]
-    datasets = pd.DataFrame({
-        "dataset_id": ds["dataset_id"], "name": ds["dataset"], "task": ds["task"],
-        "target": ds["target"], "catalogue_version": ds["catalogue_version"].astype("int32"),
-        "meta_features": meta, "warnings": "[]", "created_at": ds["logged_at"]})
-    trials = pd.DataFrame({
-        "study_id": flat["study_id"], "trial_index": flat["trial_index"].astype("int32"),
-        "config": [_format0_config(p) for p in flat["params"]],
-        "score": flat["score"].astype(float), "fit_seconds": flat["fit_seconds"].astype(float),
-        "status": flat["status"], "error": None})
-    return {name: pa.Table.from_pandas(frame, schema=SCHEMAS[name], preserve_index=False)
-            for name, frame in (("datasets", datasets), ("studies", studies),
-                                ("trials", trials))}

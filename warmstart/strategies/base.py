@@ -4,7 +4,7 @@ A strategy's input, :class:`~warmstart.strategies.context.SuggestContext`, lives
 :mod:`warmstart.strategies.context`.
 
 Scores are normalised per study by min-max over the study's ``ok`` trials, oriented so
-that 1 is the study's best and 0 its worst whatever the metric's direction; a study
+that 1 is the study's best and 0 its worst whether higher or lower scores are better; a study
 whose trials all scored the same gets 1 for every trial. Min-max (rather than ranks)
 keeps the size of gaps: a configuration that is nearly as good as the best scores
 close to 1 even when many trials sit between them.
@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 
 from warmstart.errors import BadInputError
-from warmstart.metrics import MINIMIZE
+from warmstart.metrics import LOWER
 from warmstart.spaces import SearchSpace, config_key
 from warmstart.values import finite_or_none
 
@@ -40,15 +40,15 @@ NORMALISATIONS = ("minmax", "rank")
 SAME_DATASET_DISTANCE = 1e-9
 
 
-def normalise_scores(scores: np.ndarray, direction: str | np.ndarray, method: str = "minmax",
+def normalise_scores(scores: np.ndarray, better: str | np.ndarray, method: str = "minmax",
                      groups: np.ndarray | None = None) -> np.ndarray:
     """Normalise scores to [0, 1] within each study, 1 = the study's best.
 
     Parameters
     ----------
     scores : ndarray of shape (n_trials,), finite
-    direction : {"maximize", "minimize"} or ndarray of shape (n_trials,) of them
-        The metric's direction, for all trials or per trial.
+    better : {"higher", "lower"} or ndarray of shape (n_trials,) of them
+        Which scores are better, for all trials or per trial.
     method : {"minmax", "rank"}
         ``"minmax"``: ``(s - min) / (max - min)``; ``"rank"``: ``(rank - 1) / (n - 1)``
         with average ranks for ties (1 = best trial), which ignores the size of gaps.
@@ -59,7 +59,7 @@ def normalise_scores(scores: np.ndarray, direction: str | np.ndarray, method: st
     if method not in NORMALISATIONS:
         raise BadInputError(f"unknown normalisation {method!r}")
     s = np.asarray(scores, dtype=float)
-    s = np.where(np.asarray(direction) == MINIMIZE, -s, s)
+    s = np.where(np.asarray(better) == LOWER, -s, s)
     by = pd.Series(s).groupby(np.zeros(s.size) if groups is None else np.asarray(groups),
                               sort=False)
     lo, hi = by.transform("min").to_numpy(), by.transform("max").to_numpy()
@@ -160,10 +160,10 @@ def prepare_trials(trials: pd.DataFrame, studies: pd.DataFrame,
     """
     t = trials[(trials["status"] == "ok") & trials["study_id"].isin(studies["study_id"])]
     t = t.dropna(subset=["score"]).reset_index(drop=True)
-    direction = dict(zip(studies["study_id"], studies["direction"]))
+    better = dict(zip(studies["study_id"], studies["better"]))
     if parse_configs:
         t["config"] = [json.loads(c) for c in t["config"]]
     t["normalised"] = normalise_scores(
-        t["score"].to_numpy(dtype=float), t["study_id"].map(direction).to_numpy(),
+        t["score"].to_numpy(dtype=float), t["study_id"].map(better).to_numpy(),
         normalisation, groups=t["study_id"].to_numpy())
     return t
