@@ -20,6 +20,7 @@ from sklearn.datasets import load_breast_cancer, load_iris, load_wine
 
 from cli.main import main
 from tests.conftest import dir_digest
+from tests.test_history_maintenance import migrated_copy
 from warmstart import fingerprint
 from warmstart.families import get_family
 from warmstart.history import KnowledgeBase
@@ -57,13 +58,7 @@ def _as_seen(tables) -> dict:
 
 
 def test_migrate_format1_fixture_keeps_what_readers_saw(tmp_path):
-    path = tmp_path / "old"
-    shutil.copytree(FIXTURE, path)
-    r = cli("kb", "info", "--kb", path)
-    assert r.exit_code == 2 and "format version 1" in r.output and "kb migrate" in r.output
-    r = cli("kb", "migrate", "--kb", path, "--json")
-    assert r.exit_code == 0, r.output
-    out = json.loads(r.output)
+    path, out = migrated_copy(FIXTURE, tmp_path, 1)
     assert (out["from_version"], out["to_version"], out["studies"]) == (1, 2, 4)
     kb = KnowledgeBase(path)
     seen = _as_seen(kb.tables())
@@ -283,3 +278,14 @@ def test_caches_give_the_answer_of_a_fresh_history(tmp_path, fps):
     assert _answer(kb, query) == after  # cold again
     kb.compact()
     assert _answer(kb, query) == after
+
+
+def test_import_skips_the_same_trials_logged_elsewhere(tmp_path, fps):
+    a, b = KnowledgeBase.init(tmp_path / "a"), KnowledgeBase.init(tmp_path / "b")
+    for kb in (a, b):  # two teams logged the same study on their own
+        kb.log(fingerprint_of=fps["iris"], family="random_forest", trials=rf_trials(30))
+    b.log(fingerprint_of=fps["wine"], family="random_forest", trials=rf_trials(31))
+    b.export(tmp_path / "b.zip")
+    out = a.import_(tmp_path / "b.zip")
+    assert (out["studies_added"], out["studies_already_present"]) == (1, 1)
+    assert a.info()["studies"] == 2

@@ -643,7 +643,11 @@ def import_(kb: KnowledgeBase, file: str | os.PathLike) -> dict[str, Any]:
                | new["study_id"].isin(deleted_ids(kb.path)))
     known_sigs = set(_signatures(have["studies"], have["trials"]))
     sigs = _signatures(new, frames["trials"])
-    same_content = new["study_id"].map(sigs).isin(known_sigs) & ~same_id
+    # the same study under another id: the same record, or the same trials (which
+    # log refuses too, see warmstart.records)
+    same_content = (new["study_id"].map(sigs).isin(known_sigs)
+                    | new["content_hash"].isin(have["studies"]["content_hash"].dropna())
+                    ) & ~same_id
     add = new[~same_id & ~same_content]
     trials = frames["trials"][frames["trials"]["study_id"].isin(add["study_id"])]
     datasets = frames["datasets"][frames["datasets"]["dataset_id"].isin(add["dataset_id"])
