@@ -289,3 +289,20 @@ def test_import_skips_the_same_trials_logged_elsewhere(tmp_path, fps):
     out = a.import_(tmp_path / "b.zip")
     assert (out["studies_added"], out["studies_already_present"]) == (1, 1)
     assert a.info()["studies"] == 2
+
+
+def test_check_notes_twins_written_at_the_same_instant(kb, fps):
+    s = kb.log(fingerprint_of=fps["iris"], family="random_forest", trials=rf_trials(40))
+    # a second writer that checked before the first committed: copy the study under a new id
+    twin = "f" * 32
+    for table in ("datasets", "trials", "studies"):
+        src = next((kb.path / table).glob(f"{s.study_id}-*.parquet"))
+        tb = pq.read_table(src)
+        if "study_id" in tb.schema.names:
+            tb = tb.set_column(tb.schema.get_field_index("study_id"), "study_id",
+                               pa.array([twin] * tb.num_rows, pa.string()))
+        pq.write_table(tb, kb.path / table / f"{twin}-{s.dataset_id}.parquet")
+    report = kb.check(grace_seconds=0)
+    assert report.ok
+    assert any(f.check == "studies logged twice" and f.status == "note"
+               for f in report.findings)

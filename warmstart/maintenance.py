@@ -273,6 +273,12 @@ def check(kb: KnowledgeBase, repair: bool = False,
     _check_identifiers(per_file, report)
     visible = kb.tables()
     content_problems(visible["datasets"], visible["studies"], visible["trials"], report)
+    twins = visible["studies"][visible["studies"]["content_hash"].duplicated(keep=False)
+                               & visible["studies"]["content_hash"].notna()]
+    if len(twins):
+        report.findings.append(Finding("studies logged twice", NOTE, (
+            f"{len(twins)} studies share their content with another (e.g. "
+            f"{', '.join(twins['study_id'].str[:12].head(EXAMPLES))}): 'kb delete' one")))
     report.counts = {"files": sum(len(visible_files(root / t)) for t in SCHEMAS),
                      **{t: int(len(v)) for t, v in visible.items()}}
     return report

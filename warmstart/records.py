@@ -5,6 +5,8 @@ tombstones of deleted studies, and the listing behind ``kb list``, ``kb show`` a
 A study's content hash (stored in its row) is a SHA-256 over its dataset, family, task,
 metric and the multiset of its trials (configuration, score, status), so logging the
 same trials again, in any order, finds the earlier study by one column's comparison.
+Without locks, two writers logging the same study at the same instant may both succeed;
+``kb check`` notes such twins and ``kb delete`` removes one.
 
 Deleting writes a tombstone: one row in ``deletions/`` (see
 :data:`warmstart.layout.DELETION_SCHEMA`) by atomic rename, like every other write. The
