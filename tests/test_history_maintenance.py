@@ -238,7 +238,7 @@ def test_export_import_round_trip_between_two_teams(tmp_path, fps):
     a = KnowledgeBase.init(tmp_path / "a")
     b = KnowledgeBase.init(tmp_path / "b")
     fill(a, fps, 5, prefix="a")
-    fill(b, fps, 4, prefix="b")  # same datasets, different studies
+    fill(b, fps, 4, prefix="b", start=5)  # same datasets, different studies
     r = cli("kb", "export", tmp_path / "a.zip", "--kb", a.path, "--json")
     assert r.exit_code == 0, r.output
     r = cli("kb", "import", tmp_path / "a.zip", "--kb", b.path, "--json")
