@@ -258,8 +258,10 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         proposer = _Proposer(space, search, queue, queue_origin, seed)
         _run_trials(result, proposer, folds, time_limit, progress)
     if log and kb is not None and result.trials:
-        label = name or (Path(data).stem if isinstance(data, (str, os.PathLike)) else None)
-        result.logged = _log_study(kb, result, df, fp, label)
+        # a path goes along only so that a new dataset is named after its file; a known
+        # one keeps its name unless ``name`` renames it
+        named_by = data if isinstance(data, (str, os.PathLike)) else df
+        result.logged = _log_study(kb, result, named_by, fp, name)
     if out is not None and result.best is not None:
         write_bytes_atomic(json.dumps(result.best_config(), indent=2).encode() + b"\n",
                            Path(out))
@@ -520,8 +522,8 @@ def _cross_validate(folds: _Folds, pipe: Any) -> dict[str, Any]:
 
 
 # -- logging ------------------------------------------------------------------------------
-def _log_study(kb: KnowledgeBase, result: TuneResult, df: pd.DataFrame, fp: Fingerprint,
-               label: str | None) -> LoggedStudy:
+def _log_study(kb: KnowledgeBase, result: TuneResult, df: pd.DataFrame | str | os.PathLike,
+               fp: Fingerprint, label: str | None) -> LoggedStudy:
     """Log the finished trials as one study (``source="tune"``)."""
     rows = [{**t.config, "score": t.score, "fit_seconds": t.fit_seconds,
              "status": t.status, "error": t.error} for t in result.trials]
