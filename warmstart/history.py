@@ -203,8 +203,10 @@ def write_study(root: Path, fname: str, tables: dict[str, pa.Table]) -> None:
         raise BadInputError(f"history {root} is read-only (permission denied)") from None
 
 
-def dataset_name(root: Path, dataset_id: str) -> str | None:
-    """The name of ``dataset_id`` when a visible study refers to it, else None.
+def dataset_state(root: Path, dataset_id: str, digest: str) -> tuple[str | None, str | None]:
+    """``(name, earlier)``: the name of ``dataset_id`` when a visible study refers to it
+    (else None), and the id of a visible study of it whose content hash is ``digest``
+    (else None).
 
     Files written by ``log`` carry the dataset id in their name, so only that dataset's
     files and the few merged or imported ones are read.
@@ -213,15 +215,18 @@ def dataset_name(root: Path, dataset_id: str) -> str | None:
         return [f for f in files if (p := parse_log_name(f)) is None or p[1] == dataset_id]
 
     here = pads.field("dataset_id") == dataset_id
-    found = read_dir(root / "studies", SCHEMAS["studies"], columns=["study_id"],
-                     filter=here, select=of_dataset)
-    ids = set(found.column("study_id").to_pylist()) - records.deleted_ids(root)
-    if not ids:
-        return None
+    found = read_dir(root / "studies", SCHEMAS["studies"], columns=["study_id", "content_hash"],
+                     filter=here, select=of_dataset).to_pandas()
+    found = found[~found["study_id"].isin(records.deleted_ids(root))]
+    if found.empty:
+        return None, None
+    ids = set(found["study_id"])
+    same = sorted(found.loc[found["content_hash"] == digest, "study_id"])
     rows = read_dir(root / "datasets", SCHEMAS["datasets"], filter=here, select=lambda fs: [
         f for f in of_dataset(fs) if (p := parse_log_name(f)) is None or p[0] in ids])
     rows = dedupe(rows, "datasets")
-    return rows.column("name")[0].as_py() if rows.num_rows else None
+    return (rows.column("name")[0].as_py() if rows.num_rows else None,
+            same[0] if same else None)
 
 
 def check_writable(root: Path) -> None:
@@ -373,11 +378,10 @@ class KnowledgeBase:
         self._check_writable()
 
         dataset_id, study_id = fp.dataset_hash[:16], uuid.uuid4().hex
-        known = dataset_name(self.path, dataset_id)
+        known, earlier = dataset_state(self.path, dataset_id, trials_hash(
+            dataset_id, fam.name, fp.task, metric_obj.name, checked))
         label = name or known or (Path(data).stem if isinstance(data, (str, os.PathLike))
                                   else f"dataset-{fp.dataset_hash[:8]}")
-        earlier = records.find_logged(self.path, dataset_id, trials_hash(
-            dataset_id, fam.name, fp.task, metric_obj.name, checked))
         if earlier is None:
             write_study(self.path, log_name(study_id, dataset_id), study_tables(
                 study_id, dataset_id, label, fam.name, fp, metric_obj, checked, source,

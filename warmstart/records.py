@@ -28,12 +28,11 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 import pyarrow as pa
-import pyarrow.dataset as pads
 
 from warmstart.errors import BadInputError
 from warmstart.layout import DELETION_SCHEMA, DELETIONS, SCHEMAS
 from warmstart.metrics import LOWER
-from warmstart.storage import batch_name, parse_log_name, read_dir, write_atomic
+from warmstart.storage import batch_name, read_dir, write_atomic
 from warmstart.values import finite_or_none
 from warmstart.version import __version__
 
@@ -75,22 +74,6 @@ def content_hashes(studies: pd.DataFrame, trials: pd.DataFrame) -> list[str]:
         out.append(study_content_hash(r.dataset_id, r.family, r.task, r.metric,
                                       list(g["config"]), scores, list(g["status"])))
     return out
-
-
-def find_logged(root: Path, dataset_id: str, digest: str) -> str | None:
-    """The id of a visible study of ``dataset_id`` whose content hash is ``digest``.
-
-    Files written by ``log`` carry the dataset id in their name, so only that dataset's
-    study files and the few merged or imported ones are read.
-    """
-    def of_dataset(files: list[Path]) -> list[Path]:
-        return [f for f in files if (p := parse_log_name(f)) is None or p[1] == dataset_id]
-
-    found = read_dir(root / "studies", SCHEMAS["studies"], columns=["study_id"],
-                     filter=(pads.field("content_hash") == digest)
-                     & (pads.field("dataset_id") == dataset_id), select=of_dataset)
-    ids = sorted(set(found.column("study_id").to_pylist()) - deleted_ids(root))
-    return ids[0] if ids else None
 
 
 # -- tombstones -------------------------------------------------------------------------
@@ -256,6 +239,6 @@ def studies_from_format1(studies: pd.DataFrame, trials: pd.DataFrame) -> pd.Data
     return out[SCHEMAS["studies"].names]
 
 
-__all__ = ["FORMAT1_BETTER", "content_hashes", "delete", "deleted_ids", "find_logged",
+__all__ = ["FORMAT1_BETTER", "content_hashes", "delete", "deleted_ids",
            "list_studies", "resolve", "show", "study_content_hash", "study_rows",
            "studies_from_format1", "without_deleted"]
