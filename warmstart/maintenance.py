@@ -54,6 +54,7 @@ from warmstart.layout import (
     KEYS,
     SCHEMAS,
     dedupe,
+    format_version_of,
     marker_is_current,
     read_marker,
     write_marker,
@@ -552,8 +553,11 @@ def read_export(file: str | os.PathLike) -> tuple[dict[str, Any], dict[str, pa.T
         raise BadInputError(f"{src} has an invalid {EXPORT_MARKER}") from None
     if not isinstance(marker, dict) or marker.get("kind") != EXPORT_KIND:
         raise BadInputError(f"{src} is not a warmstart export (wrong kind)")
-    version = marker.get("format_version")
-    if not isinstance(version, int) or version > FORMAT_VERSION or version < 1:
+    version = format_version_of(marker.get("format_version"))
+    if version is None:
+        raise BadInputError(f"{src} has an invalid {EXPORT_MARKER} (format_version "
+                            f"{marker.get('format_version')!r} is not a whole number)")
+    if version > FORMAT_VERSION or version < 1:
         raise BadInputError(
             f"{src} has format version {version!r} (written by "
             f"{marker.get('created_by', '?')}); this warmstart {__version__} imports "
