@@ -124,7 +124,11 @@ def kb_export_cmd(file, kb_path, as_json) -> None:
 @json_option
 @handle_errors
 def kb_import_cmd(file, kb_path, as_json) -> None:
-    """Merge another team's exported FILE; studies already present are skipped."""
+    """Merge another team's exported FILE; studies already present are skipped.
+
+    The file is checked before anything is written: its tables must have the content
+    hash its marker states, and it may hold at most 2 GiB uncompressed.
+    """
     out = open_history(kb_path).import_(file)
     if as_json:
         emit_json(out)

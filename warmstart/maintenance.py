@@ -18,6 +18,9 @@ All of these work beside live readers and writers, without locks (see
   hash) and ``datasets.parquet``, ``studies.parquet``, ``trials.parquet``.
   :func:`import_` merges such a file: studies already present, by id or by content (same
   dataset, family, task, metric and trials), are skipped, so importing twice adds nothing.
+  It first recomputes the content hash (a mismatch is refused) and reads the members in
+  pieces, at most :data:`MAX_IMPORT_BYTES` uncompressed, so a crafted file cannot
+  exhaust memory.
 * :func:`migrate` converts the format-0 layout (one flat ``trials.parquet``: a row per
   trial, fingerprints in ``fp_<meta-feature>`` columns, see :data:`FORMAT0_COLUMNS`) to
   the current one, in place; the new marker is the commit point and the old file is kept
@@ -35,6 +38,7 @@ import math
 import os
 import shutil
 import zipfile
+import zlib
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
@@ -533,22 +537,95 @@ def export(kb: KnowledgeBase, file: str | os.PathLike) -> dict[str, Any]:
             "content_hash": marker["content_hash"]}
 
 
-def read_export(file: str | os.PathLike) -> tuple[dict[str, Any], dict[str, pa.Table]]:
-    """Open an export file and validate it; returns its marker and its three tables."""
+# An export's members are read in pieces of this size, counting what they really hold.
+READ_CHUNK_BYTES = 1 << 20
+# The most an import reads: the marker and the three tables, uncompressed. The demo
+# history exports to under 1 MB and a million trials to about 60 MB; this leaves room
+# and still fits in the memory of a laptop.
+MAX_IMPORT_BYTES = 2 * 1024 ** 3
+
+
+def _export_members(src: Path, max_bytes: int) -> dict[str, bytes]:
+    """The marker and table members of the export ``src``, read in pieces.
+
+    Refuses the file before reading when its directory declares more than
+    ``max_bytes`` uncompressed, and while reading when the members hold more than
+    they declare (``zipfile`` stops a member at its declared size and checks its
+    CRC), so a small crafted file cannot make the import hold more than ``max_bytes``.
+    """
+    need = [EXPORT_MARKER, *(f"{t}.parquet" for t in SCHEMAS)]
+    with zipfile.ZipFile(src) as zf:
+        infos = {i.filename: i for i in zf.infolist()}  # a repeated name: the last wins
+        missing = [n for n in need if n not in infos]
+        if missing:
+            raise BadInputError(f"{src} is not a warmstart export (missing "
+                                f"{', '.join(sorted(missing))})")
+        declared = sum(infos[n].file_size for n in need)
+        if declared > max_bytes:
+            raise BadInputError(f"{src} declares {declared:,} bytes uncompressed; kb "
+                                f"import reads at most {max_bytes:,}")
+        out, total = {}, 0
+        for n in need:
+            buf = bytearray()
+            with zf.open(infos[n]) as fh:
+                while chunk := fh.read(READ_CHUNK_BYTES):
+                    total += len(chunk)
+                    if total > max_bytes:
+                        raise BadInputError(f"{src} holds more than {max_bytes:,} bytes "
+                                            "uncompressed (more than it declares)")
+                    buf += chunk
+            out[n] = bytes(buf)
+    return out
+
+
+def _check_content_hash(src: Path, marker: dict[str, Any], tables: dict[str, pa.Table]) -> None:
+    """Refuse an export whose tables do not have the content hash its marker states
+    (damaged in transit, or edited by hand)."""
+    stated = marker.get("content_hash")
+    if not isinstance(stated, str) or len(stated) != 64:
+        raise BadInputError(f"{src} has an invalid {EXPORT_MARKER} (no content_hash)")
+    got = content_hash({t: v.to_pandas() for t, v in tables.items()})
+    if got != stated:
+        raise BadInputError(f"{src} is damaged or was edited: its tables' content hash "
+                            f"{got[:16]}... differs from the {stated[:16]}... its marker "
+                            "states")
+
+
+def _table_of(src: Path, t: str, blob: bytes) -> pa.Table:
+    """Member ``t`` of an export as a table of the current schema."""
+    try:
+        raw = pq.read_table(pa.BufferReader(blob))
+    except (OSError, pa.ArrowException) as exc:
+        raise BadInputError(f"{src}: {t}.parquet is unreadable ({exc})") from None
+    missing = [f.name for f in SCHEMAS[t] if f.name not in raw.schema.names]
+    if missing:
+        raise BadInputError(f"{src}: {t}.parquet lacks columns {', '.join(missing)}")
+    try:
+        return raw.select(SCHEMAS[t].names).cast(SCHEMAS[t])
+    except (pa.ArrowException, ValueError) as exc:
+        raise BadInputError(f"{src}: {t}.parquet has the wrong column types ({exc})"
+                            ) from None
+
+
+def read_export(file: str | os.PathLike, max_bytes: int = MAX_IMPORT_BYTES
+                ) -> tuple[dict[str, Any], dict[str, pa.Table]]:
+    """Open an export file and validate it; returns its marker and its three tables.
+
+    At most ``max_bytes`` are read, uncompressed (see :func:`_export_members`), and the
+    tables must have the content hash the marker states.
+    """
     src = Path(file)
     if not src.is_file():
         raise BadInputError(f"export file not found: {src}")
     try:
-        with zipfile.ZipFile(src) as zf:
-            names = set(zf.namelist())
-            need = {EXPORT_MARKER, *(f"{t}.parquet" for t in SCHEMAS)}
-            if not need <= names:
-                raise BadInputError(f"{src} is not a warmstart export (missing "
-                                    f"{', '.join(sorted(need - names))})")
-            marker = json.loads(zf.read(EXPORT_MARKER).decode("utf-8"))
-            blobs = {t: zf.read(f"{t}.parquet") for t in SCHEMAS}
-    except (zipfile.BadZipFile, OSError):
-        raise BadInputError(f"{src} is not a warmstart export (not a ZIP file)") from None
+        blobs = _export_members(src, max_bytes)
+    except zipfile.BadZipFile as exc:
+        why = str(exc) if "CRC" in str(exc) else "not a ZIP file"
+        raise BadInputError(f"{src} is not a warmstart export ({why})") from None
+    except (OSError, EOFError, NotImplementedError, RuntimeError, zlib.error) as exc:
+        raise BadInputError(f"{src} is not a readable warmstart export ({exc})") from None
+    try:
+        marker = json.loads(blobs[EXPORT_MARKER].decode("utf-8"))
     except (UnicodeDecodeError, json.JSONDecodeError):
         raise BadInputError(f"{src} has an invalid {EXPORT_MARKER}") from None
     if not isinstance(marker, dict) or marker.get("kind") != EXPORT_KIND:
@@ -562,20 +639,8 @@ def read_export(file: str | os.PathLike) -> tuple[dict[str, Any], dict[str, pa.T
             f"{src} has format version {version!r} (written by "
             f"{marker.get('created_by', '?')}); this warmstart {__version__} imports "
             f"format versions 1 to {FORMAT_VERSION}: upgrade warmstart")
-    tables = {}
-    for t, blob in blobs.items():
-        try:
-            raw = pq.read_table(pa.BufferReader(blob))
-        except (OSError, pa.ArrowException) as exc:
-            raise BadInputError(f"{src}: {t}.parquet is unreadable ({exc})") from None
-        missing = [f.name for f in SCHEMAS[t] if f.name not in raw.schema.names]
-        if missing:
-            raise BadInputError(f"{src}: {t}.parquet lacks columns {', '.join(missing)}")
-        try:
-            tables[t] = raw.select(SCHEMAS[t].names).cast(SCHEMAS[t])
-        except (pa.ArrowException, ValueError) as exc:
-            raise BadInputError(f"{src}: {t}.parquet has the wrong column types ({exc})"
-                                ) from None
+    tables = {t: _table_of(src, t, blobs[f"{t}.parquet"]) for t in SCHEMAS}
+    _check_content_hash(src, marker, tables)
     return marker, tables
 
 
