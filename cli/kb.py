@@ -88,10 +88,18 @@ def kb_check_cmd(kb_path, repair, grace_seconds, as_json) -> None:
 @json_option
 @handle_errors
 def kb_compact_cmd(kb_path, as_json) -> None:
-    """Merge each table's many small files into one (content unchanged)."""
+    """Merge each table's many small files into one (content unchanged).
+
+    One compaction runs at a time: while another holds the history's lock, this one
+    says so and exits 0. A lock whose process is gone, or older than an hour, is taken
+    over.
+    """
     out = open_history(kb_path).compact()
     if as_json:
         emit_json(out)
+        return
+    if not out["compacted"]:
+        click.echo(f"another compaction is running ({out['running']}); nothing done")
         return
     b, a = out["before"], out["after"]
     rows = [[what, b[key], a[key]] for what, key in

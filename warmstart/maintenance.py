@@ -37,6 +37,8 @@ import json
 import math
 import os
 import shutil
+import socket
+import uuid
 import zipfile
 import zlib
 from dataclasses import dataclass, field
@@ -140,8 +142,7 @@ class CheckReport:
 def _schema_mismatch(path: Path, expected: pa.Schema) -> str | None:
     """Why ``path`` is not a readable Parquet file of ``expected``; None when it is."""
     try:
-        got = pq.read_schema(path)
-        pq.ParquetFile(path).metadata  # noqa: B018 - the footer must parse too
+        got = pq.ParquetFile(path).schema_arrow  # the footer must parse
     except (OSError, pa.ArrowException) as exc:
         return str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
     for f in expected:
@@ -285,21 +286,45 @@ def check(kb: KnowledgeBase, repair: bool = False,
 _PerFile = dict[str, list[tuple[Path, pa.Table]]]  # table -> (file, its rows)
 
 
+def foreign_files(root: Path) -> list[tuple[str, Path, str]]:
+    """Files in the table folders that are not history files: ``(table, path, why)`` for
+    each ``.parquet`` file that is not Parquet, or not of its table's schema (a data
+    set copied in by mistake, a file of another tool). Reads one footer per file."""
+    return [(table, f, why) for table, schema in SCHEMAS.items()
+            for f in visible_files(root / table) if (why := _schema_mismatch(f, schema))]
+
+
+def refuse_foreign_files(root: Path, doing: str) -> None:
+    """Raise one line naming the first foreign file and pointing to ``--repair``."""
+    found = foreign_files(root)
+    if found:
+        table, f, why = found[0]
+        more = f" and {len(found) - 1} more" if len(found) > 1 else ""
+        raise BadInputError(
+            f"cannot {doing} history {root}: {table}/{f.name} is not one of its files "
+            f"({why}){more}; move foreign files aside with 'warmstart kb check --repair "
+            f"--kb {root}'")
+
+
+def _set_aside(root: Path, table: str, f: Path) -> Path:
+    """Move ``f`` to ``quarantine/<table>/``, never over a file already there."""
+    dest = root / QUARANTINE / table
+    dest.mkdir(parents=True, exist_ok=True)
+    target = dest / f.name
+    while target.exists():
+        target = dest / f"{f.stem}-{uuid.uuid4().hex[:8]}{f.suffix}"
+    os.rename(f, target)
+    return target
+
+
 def _check_files(root: Path, repair: bool, report: CheckReport) -> bool:
-    """Every file readable, with its table's schema (with ``repair``: bad ones moved to
-    ``quarantine/``). Returns whether every remaining file is readable."""
-    bad_files, n_files = [], 0
-    for table, schema in SCHEMAS.items():
-        for f in visible_files(root / table):
-            n_files += 1
-            why = _schema_mismatch(f, schema)
-            if why:
-                bad_files.append((table, f, why))
+    """Every file readable, with its table's schema (with ``repair``: foreign ones moved
+    to ``quarantine/``, never deleted). Returns whether every remaining file is readable."""
+    n_files = sum(len(visible_files(root / t)) for t in SCHEMAS)
+    bad_files = foreign_files(root)
     if bad_files and repair:
         for table, f, _why in bad_files:
-            dest = root / QUARANTINE / table
-            dest.mkdir(parents=True, exist_ok=True)
-            os.rename(f, dest / f.name)
+            _set_aside(root, table, f)
         report.findings.append(Finding("readable files", REPAIRED, f"{len(bad_files)} files "
                                        f"moved to {QUARANTINE}/"))
         bad_files = []
@@ -396,7 +421,11 @@ def summary(kb: KnowledgeBase) -> dict[str, Any]:
 
 def info(kb: KnowledgeBase) -> dict[str, Any]:
     """Counts per family, task and metric, fingerprints per catalogue version, files and
-    size on disk (what ``warmstart kb info`` prints)."""
+    size on disk (what ``warmstart kb info`` prints).
+
+    A foreign file in a table folder is refused with one line pointing to
+    ``kb check --repair`` (see :func:`refuse_foreign_files`)."""
+    refuse_foreign_files(kb.path, "read")
     t = kb.tables()
     studies, trials, datasets = t["studies"], t["trials"], t["datasets"]
     per = []
@@ -424,6 +453,12 @@ def info(kb: KnowledgeBase) -> dict[str, Any]:
 
 
 # -- compact ----------------------------------------------------------------------------
+COMPACT_LOCK = ".compact.lock"
+# A lock older than this is taken over whoever holds it: compacting even a million-trial
+# history takes minutes, so a holder this old has died on another host.
+STALE_LOCK_SECONDS = 3600.0
+
+
 def compact(kb: KnowledgeBase) -> dict[str, Any]:
     """Merge each table's committed rows into one file, then delete the merged files.
 
@@ -431,22 +466,143 @@ def compact(kb: KnowledgeBase) -> dict[str, Any]:
     listed is gone) and writers (only files listed before merging, and whose every row
     is in the merged file, are deleted; orphans and in-flight files are left alone).
 
+    One compaction runs at a time: it holds ``<history>/.compact.lock``, created with
+    ``O_EXCL``. A later one returns at once with ``compacted`` False and who holds the
+    lock. A lock is stale, and taken over, when its holder's process on this host is
+    gone or when it is older than ``STALE_LOCK_SECONDS`` (an hour). A foreign file in a
+    table folder is refused with one line pointing to ``kb check --repair``.
+
     Returns
     -------
     dict
-        ``before`` and ``after`` summaries (files, rows per table, content hash) and the
-        number of files ``removed``.
+        ``compacted``; when True, ``before`` and ``after`` summaries (files, rows per
+        table, content hash) and the number of files ``removed``; when False,
+        ``running``: which process holds the lock.
     """
     kb._check_writable()
-    before = summary(kb)
-    listed = {t: [(f, read_file(f, SCHEMAS[t])) for f in visible_files(kb.path / t)]
-              for t in SCHEMAS}
-    studies = dedupe(pa.concat_tables([tb for _f, tb in listed["studies"]])
-                     if listed["studies"] else SCHEMAS["studies"].empty_table(), "studies")
-    removed = sum(_merge_table(kb.path / table, table, listed[table], studies)
-                  for table in ("datasets", "trials", "studies"))
-    after = summary(kb)
-    return {"path": str(kb.path), "before": before, "after": after, "removed": removed}
+    lock, mine = take_compact_lock(kb.path)
+    if lock is None:
+        return {"path": str(kb.path), "compacted": False, "running": mine}
+    try:
+        refuse_foreign_files(kb.path, "compact")
+        before = summary(kb)
+        listed = {t: _still_there(kb.path / t, SCHEMAS[t]) for t in SCHEMAS}
+        studies = dedupe(pa.concat_tables([tb for _f, tb in listed["studies"]])
+                         if listed["studies"] else SCHEMAS["studies"].empty_table(),
+                         "studies")
+        removed = sum(_merge_table(kb.path / table, table, listed[table], studies)
+                      for table in ("datasets", "trials", "studies"))
+        after = summary(kb)
+    finally:
+        release_compact_lock(lock, mine)
+    return {"path": str(kb.path), "compacted": True, "before": before, "after": after,
+            "removed": removed}
+
+
+def _still_there(directory: Path, schema: pa.Schema) -> list[tuple[Path, pa.Table]]:
+    """Every visible file of a table folder with its rows; a file gone since the listing
+    is skipped (its rows are in whichever merged file replaced it, which stays)."""
+    out = []
+    for f in visible_files(directory):
+        try:
+            out.append((f, read_file(f, schema)))
+        except FileNotFoundError:
+            continue
+    return out
+
+
+def take_compact_lock(root: Path) -> tuple[Path | None, str]:
+    """Take the compaction lock of the history at ``root``.
+
+    Returns ``(lock path, what this process wrote in it)`` when taken, ``(None, who
+    holds it)`` when a live compaction holds it. A stale lock (see :func:`compact`) is
+    renamed aside first, so of several processes finding it stale only one takes over.
+    """
+    lock = root / COMPACT_LOCK
+    mine = json.dumps({"pid": os.getpid(), "host": socket.gethostname(),
+                       "started_at": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+                       "token": uuid.uuid4().hex})
+    for _attempt in range(5):
+        try:
+            fd = os.open(lock, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644)
+        except FileExistsError:
+            text, holder = _lock_holder(lock)
+            if text is None:
+                continue  # released meanwhile: try again
+            if not _lock_is_stale(lock, holder):
+                return None, _describe_holder(holder)
+            _break_stale_lock(lock, text)
+            continue
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(mine)
+            fh.flush()
+            os.fsync(fh.fileno())
+        return lock, mine
+    return None, "another process (the lock kept changing hands)"
+
+
+def release_compact_lock(lock: Path, mine: str) -> None:
+    """Remove the lock if it is still the one this process wrote."""
+    text, _holder = _lock_holder(lock)
+    if text == mine:
+        lock.unlink(missing_ok=True)
+
+
+def _lock_holder(lock: Path) -> tuple[str | None, dict[str, Any] | None]:
+    """The lock's text (None when there is no lock) and its parsed content (None when
+    unreadable, e.g. just created and not yet written)."""
+    try:
+        text = lock.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        return None, None
+    try:
+        holder = json.loads(text)
+    except ValueError:
+        holder = None
+    return text, holder if isinstance(holder, dict) else None
+
+
+def _lock_is_stale(lock: Path, holder: dict[str, Any] | None) -> bool:
+    if age_seconds(lock) >= STALE_LOCK_SECONDS:
+        return True
+    if holder is None or holder.get("host") != socket.gethostname():
+        return False  # another host's process cannot be checked: wait for the age
+    pid = holder.get("pid")
+    if isinstance(pid, bool) or not isinstance(pid, int) or pid <= 0:
+        return False
+    try:
+        os.kill(pid, 0)  # signal 0: only asks whether the process exists
+    except ProcessLookupError:
+        return True
+    except (PermissionError, OverflowError):
+        return False
+    return False
+
+
+def _break_stale_lock(lock: Path, stale_text: str) -> None:
+    """Rename the stale lock aside (atomic: one of several takers wins) and delete it; if
+    what was renamed is not the stale lock read before (a fresh one replaced it
+    meanwhile), link it back unless a lock is there again."""
+    aside = lock.with_name(f"{COMPACT_LOCK}.stale-{uuid.uuid4().hex}")
+    try:
+        os.rename(lock, aside)
+    except FileNotFoundError:
+        return
+    try:
+        if aside.read_text(encoding="utf-8") != stale_text:
+            try:
+                os.link(aside, lock)
+            except FileExistsError:
+                pass
+    finally:
+        aside.unlink(missing_ok=True)
+
+
+def _describe_holder(holder: dict[str, Any] | None) -> str:
+    if holder is None:
+        return "a process that is starting"
+    return (f"process {holder.get('pid', '?')} on {holder.get('host', '?')} since "
+            f"{holder.get('started_at', '?')}")
 
 
 def _merge_table(directory: Path, table: str, files: list[tuple[Path, pa.Table]],
