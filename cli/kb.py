@@ -49,6 +49,9 @@ def kb_info_cmd(kb_path, as_json) -> None:
         rows = [[r["family"], r["task"], r["metric"], r["studies"], r["datasets"], r["trials"]]
                 for r in info["by_family"]]
         click.echo(table(rows, ["family", "task", "metric", "studies", "datasets", "trials"]))
+    if info["studies_all_failed"]:
+        click.echo(f"studies with no successful trial: {info['studies_all_failed']} (kept; "
+                   "suggest, backtest and similar leave them out)")
     versions = ", ".join(f"v{k}: {v}" for k, v in
                          info["fingerprints_by_catalogue_version"].items())
     click.echo(f"fingerprints by catalogue version: {versions or 'none'}")

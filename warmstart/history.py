@@ -33,6 +33,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.dataset as pads
 
 from warmstart import maintenance, suggesting
@@ -209,6 +210,30 @@ def check_writable(root: Path) -> None:
             raise BadInputError(f"history {root} is read-only ({d} is not writable)")
 
 
+def without_failed_studies(tables: dict[str, pa.Table]) -> dict[str, pa.Table]:
+    """``tables`` without the studies none of whose trials succeeded (status ``ok`` with
+    a finite score), their trials, and the datasets only they refer to.
+
+    Such a study is logged and kept (``kb check`` notes it), but it has nothing to
+    teach: every reader that answers questions (``suggest``, ``backtest``, ``similar``,
+    the service) sees the history through this rule.
+    """
+    trials, studies = tables["trials"], tables["studies"]
+    ok = pc.and_(pc.equal(trials["status"], "ok"),
+                 pc.fill_null(pc.is_finite(trials["score"]), False))
+    keep = pc.is_in(studies["study_id"], value_set=pc.unique(trials.filter(ok)["study_id"]))
+    if studies.num_rows == 0 or pc.all(keep).as_py():
+        return tables
+    studies = studies.filter(keep)
+    return {
+        "datasets": tables["datasets"].filter(pc.is_in(
+            tables["datasets"]["dataset_id"], value_set=pc.unique(studies["dataset_id"]))),
+        "studies": studies,
+        "trials": trials.filter(pc.is_in(trials["study_id"],
+                                         value_set=studies["study_id"])),
+    }
+
+
 class KnowledgeBase:
     """A team history on disk.
 
@@ -250,7 +275,8 @@ class KnowledgeBase:
 
     # -- reading --------------------------------------------------------------------
     def arrow_tables(self, family: str | None = None, task: str | None = None,
-                     trial_columns: list[str] | None = None) -> dict[str, pa.Table]:
+                     trial_columns: list[str] | None = None, *,
+                     include_failed: bool = False) -> dict[str, pa.Table]:
         """The visible rows of the three tables as Arrow tables, sorted and de-duplicated.
 
         Visible means committed: the studies (optionally only those of ``family`` and
@@ -259,17 +285,29 @@ class KnowledgeBase:
         killed or still-running writer left is ever seen. Only the needed files and rows
         are read (Parquet filters), which keeps a question about one family fast on a
         large history.
-        """
-        return visible_tables(self.path, family, task, trial_columns)
 
-    def tables(self, family: str | None = None, task: str | None = None
-               ) -> dict[str, pd.DataFrame]:
+        Studies whose every trial failed are left out (see
+        :func:`without_failed_studies`) unless ``include_failed`` is True, as the
+        maintenance tools (check, info, export, import, compact) ask.
+        """
+        if include_failed:
+            return visible_tables(self.path, family, task, trial_columns)
+        need = None if trial_columns is None else list(dict.fromkeys(
+            [*trial_columns, "study_id", "status", "score"]))
+        out = without_failed_studies(visible_tables(self.path, family, task, need))
+        if trial_columns is not None:
+            out["trials"] = out["trials"].select(trial_columns)
+        return out
+
+    def tables(self, family: str | None = None, task: str | None = None, *,
+               include_failed: bool = False) -> dict[str, pd.DataFrame]:
         """The visible rows of all three tables as DataFrames (see :meth:`arrow_tables`).
 
         Rows are de-duplicated by key and sorted by it, so the result does not depend on
         how the rows are spread over files.
         """
-        return {k: v.to_pandas() for k, v in self.arrow_tables(family, task).items()}
+        return {k: v.to_pandas() for k, v in self.arrow_tables(
+            family, task, include_failed=include_failed).items()}
 
     def fingerprints(self, datasets: pd.DataFrame | None = None) -> dict[str, Fingerprint]:
         """Stored fingerprints by dataset id (of ``datasets``, default every dataset)."""

@@ -218,6 +218,15 @@ def content_problems(datasets: pd.DataFrame, studies: pd.DataFrame, trials: pd.D
         "datasets whose meta-features or warnings are not valid JSON")
 
 
+def failed_study_ids(studies: pd.DataFrame, trials: pd.DataFrame) -> list[str]:
+    """Ids of the studies none of whose trials succeeded (an ``ok`` status and a finite
+    score): the studies :func:`warmstart.history.without_failed_studies` leaves out."""
+    score = trials["score"].to_numpy(dtype=float, na_value=np.nan)
+    good = set(trials.loc[(trials["status"] == "ok").to_numpy() & np.isfinite(score),
+                          "study_id"])
+    return sorted(set(studies["study_id"]) - good)
+
+
 def _refuse_problems(tables: dict[str, pd.DataFrame], source: Any, version: int) -> None:
     """Raise :class:`BadInputError` naming the first problem :func:`content_problems`
     finds in rows about to be written from ``source``."""
@@ -276,8 +285,14 @@ def check(kb: KnowledgeBase, repair: bool = False,
                 for t in SCHEMAS}
     _check_leftovers(root, per_file, grace, repair, report)
     _check_identifiers(per_file, report)
-    visible = kb.tables()
+    visible = kb.tables(include_failed=True)
     content_problems(visible["datasets"], visible["studies"], visible["trials"], report)
+    failed = failed_study_ids(visible["studies"], visible["trials"])
+    if failed:
+        report.findings.append(Finding(
+            "studies with a successful trial", NOTE, f"{len(failed)} studies whose every "
+            f"trial failed (e.g. {', '.join(failed[:EXAMPLES])}): kept, but suggest, "
+            "backtest and similar leave them out"))
     report.counts = {"files": sum(len(visible_files(root / t)) for t in SCHEMAS),
                      **{t: int(len(v)) for t, v in visible.items()}}
     return report
@@ -414,7 +429,7 @@ def content_hash(tables: dict[str, pd.DataFrame]) -> str:
 
 def summary(kb: KnowledgeBase) -> dict[str, Any]:
     """Row counts, file count and content hash of what readers see."""
-    t = kb.tables()
+    t = kb.tables(include_failed=True)
     return {"files": sum(len(visible_files(kb.path / n)) for n in SCHEMAS),
             **{n: int(len(v)) for n, v in t.items()}, "content_hash": content_hash(t)}
 
@@ -426,7 +441,7 @@ def info(kb: KnowledgeBase) -> dict[str, Any]:
     A foreign file in a table folder is refused with one line pointing to
     ``kb check --repair`` (see :func:`refuse_foreign_files`)."""
     refuse_foreign_files(kb.path, "read")
-    t = kb.tables()
+    t = kb.tables(include_failed=True)
     studies, trials, datasets = t["studies"], t["trials"], t["datasets"]
     per = []
     if len(studies):
@@ -447,6 +462,7 @@ def info(kb: KnowledgeBase) -> dict[str, Any]:
         "trials": int(len(trials)),
         "files": sum(len(visible_files(kb.path / tb)) for tb in SCHEMAS),
         "bytes_on_disk": int(size),
+        "studies_all_failed": len(failed_study_ids(studies, trials)),
         "by_family": per,
         "fingerprints_by_catalogue_version": {int(k): int(v) for k, v in versions.items()},
     }
@@ -673,7 +689,7 @@ def export(kb: KnowledgeBase, file: str | os.PathLike) -> dict[str, Any]:
         raise BadInputError(f"export file {dest} is a directory")
     if not dest.parent.is_dir():
         raise BadInputError(f"cannot write {dest}: directory {dest.parent} does not exist")
-    tables = kb.arrow_tables()
+    tables = kb.arrow_tables(include_failed=True)
     frames = {t: v.to_pandas() for t, v in tables.items()}
     marker = {"kind": EXPORT_KIND, "format_version": FORMAT_VERSION,
               "created_by": f"warmstart {__version__}",
@@ -833,7 +849,7 @@ def import_(kb: KnowledgeBase, file: str | os.PathLike) -> dict[str, Any]:
     frames = {t: dedupe(v, t).to_pandas() for t, v in tables.items()}
     _refuse_problems(frames, file, int(marker["format_version"]))
     kb._check_writable()
-    have = kb.tables()
+    have = kb.tables(include_failed=True)
     new = frames["studies"]
     same_id = new["study_id"].isin(have["studies"]["study_id"])
     known_sigs = set(_signatures(have["studies"], have["trials"]))
