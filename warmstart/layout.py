@@ -120,7 +120,7 @@ def read_marker(root: Path, hint: str = "") -> tuple[dict[str, Any], int]:
     version = format_version_of(raw)
     if version is None:
         raise BadInputError(f"{path} is not a valid history marker file (format_version "
-                            f"{raw!r} is not a whole number)")
+                            f"{raw!r} is not a format version (a whole number >= 0))")
     return meta, version
 
 

@@ -805,7 +805,8 @@ def read_export(file: str | os.PathLike, max_bytes: int = MAX_IMPORT_BYTES
     version = format_version_of(marker.get("format_version"))
     if version is None:
         raise BadInputError(f"{src} has an invalid {EXPORT_MARKER} (format_version "
-                            f"{marker.get('format_version')!r} is not a whole number)")
+                            f"{marker.get('format_version')!r} is not a format version (a "
+                            "whole number >= 0))")
     if version > FORMAT_VERSION or version < 1:
         raise BadInputError(
             f"{src} has format version {version!r} (written by "

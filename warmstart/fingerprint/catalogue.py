@@ -54,21 +54,21 @@ SUMMARY_STATS = ("min", "q1", "median", "q3", "max", "mean")
 Bound = tuple[str | None, float]
 Interval = tuple[Bound, Bound]
 _INTERVAL = re.compile(r"\s*[\[(]\s*([^,]+?)\s*,\s*([^,]+?)\s*[\])]\s*")
-_BOUND = re.compile(r"([a-z][a-z0-9_]*)(?:([+-])([0-9.]+))?")
+_BOUND = re.compile(r"([a-z][a-z0-9_]*)\s*(?:([+-])\s*([0-9.]+))?")
 # Values computed at an end of their range may be off by rounding: never refuse those.
 RANGE_TOLERANCE = 1e-9
 
 
 def _parse_bound(text: str, where: str) -> Bound:
-    compact = text.replace(" ", "")
+    text = text.strip()
     try:  # "0", "-2", "5000", "inf", "-inf"
-        number = float(compact)
+        number = float(text.replace(" ", ""))
     except ValueError:
         number = math.nan
     if not math.isnan(number):
         return None, number
-    m = _BOUND.fullmatch(compact)
-    if m is None:
+    m = _BOUND.fullmatch(text)
+    if m is None or m.group(1) in ("nan", "inf"):
         raise ValueError(f"range {where!r}: cannot read the bound {text!r}")
     offset = float(m.group(3) or 0.0)
     return m.group(1), -offset if m.group(2) == "-" else offset
