@@ -236,23 +236,31 @@ def test_a_family_with_only_failed_studies_has_nothing_to_suggest(tmp_path, fps)
 
 
 # -- 10. foreign files in table folders ---------------------------------------------------
-def foreign_files(tmp_path: Path) -> dict[str, bytes]:
-    """Three files that are not history files, by where they are dropped."""
-    buf = io.BytesIO()  # a data set copied in by mistake (reference dataset: iris)
+def iris_parquet() -> bytes:
+    """A data set copied into the history by mistake (reference dataset: iris)."""
+    buf = io.BytesIO()
     load_iris(as_frame=True).frame.to_parquet(buf)
-    wrong = io.BytesIO()  # the trials' column names, but scores as text
-    pq.write_table(pa.table({"study_id": ["x"], "trial_index": [0], "config": ["{}"],
-                             "score": ["high"], "fit_seconds": [1.0], "status": ["ok"],
-                             "error": [None]}), wrong)
-    return {"datasets/iris copy.parquet": buf.getvalue(),
-            "trials/hand-made.parquet": wrong.getvalue(),
-            "studies/notes.parquet": b"remember to ask about the churn study\n"}
+    return buf.getvalue()
+
+
+def text_scores_parquet() -> bytes:
+    """A trials-like file of the right column names and types, but scores as text."""
+    buf = io.BytesIO()
+    pq.write_table(pa.table({"study_id": ["x"], "trial_index": pa.array([0], pa.int32()),
+                             "config": ["{}"], "score": ["high"], "fit_seconds": [1.0],
+                             "status": ["ok"], "error": pa.array([None], pa.string())}), buf)
+    return buf.getvalue()
+
+
+FOREIGN = {"datasets/iris copy.parquet": iris_parquet,
+           "trials/hand-made.parquet": text_scores_parquet,
+           "studies/notes.parquet": lambda: b"remember to ask about the churn study\n"}
 
 
 @pytest.mark.parametrize("where", ["datasets/iris copy.parquet", "trials/hand-made.parquet",
                                    "studies/notes.parquet"])
 def test_foreign_file_is_reported_in_one_line_and_moved_aside(tmp_path, filled, where):
-    content = foreign_files(tmp_path)[where]
+    content = FOREIGN[where]()
     (filled.path / where).write_bytes(content)
     (filled.path / "studies" / "README.txt").write_text("not Parquet: ignored\n")
     before = dir_digest(filled.path)
@@ -402,10 +410,10 @@ def test_real_fingerprints_lie_inside_their_ranges():
 
 
 @pytest.mark.parametrize("change, message", [
-    ({"rows": -5}, "'rows' is -5.0, outside its range [1, inf)"),
+    ({"rows": -5}, "'rows' is -5, outside its range [1, inf)"),
     ({"majority_class_share": 1.7}, "'majority_class_share' is 1.7, outside its range"),
     ({"classes": 2.5}, "'classes' is 2.5, not a whole number"),
-    ({"missing_pattern_count": 1e6}, "'missing_pattern_count' is 1000000.0, outside its "
+    ({"missing_pattern_count": 1e6}, "'missing_pattern_count' is 1000000, outside its "
                                      "range [1, rows]"),
     ({"landmark_linear": 1.2}, "'landmark_linear' is 1.2, outside its range"),
 ])

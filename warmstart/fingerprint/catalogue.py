@@ -114,13 +114,13 @@ def range_problem(name: str, value: float, values: Mapping[str, float]) -> str |
     if math.isnan(value):
         return None
     if mf.integer and value != math.floor(value):
-        return f"is {value!r}, not a whole number (it is a count)"
+        return f"is {value:.10g}, not a whole number (it is a count)"
     for low, high in mf.bounds:
         lo, hi = _end(low, values, -math.inf), _end(high, values, math.inf)
         slack = RANGE_TOLERANCE * max(1.0, abs(value))
         if lo - slack <= value <= hi + slack:
             return None
-    return f"is {value!r}, outside its range {mf.value_range}"
+    return f"is {value:.10g}, outside its range {mf.value_range}"
 
 
 @dataclass(frozen=True)
