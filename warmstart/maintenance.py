@@ -219,12 +219,12 @@ def content_problems(datasets: pd.DataFrame, studies: pd.DataFrame, trials: pd.D
 
 
 def failed_study_ids(studies: pd.DataFrame, trials: pd.DataFrame) -> list[str]:
-    """Ids of the studies none of whose trials succeeded (an ``ok`` status and a finite
-    score): the studies :func:`warmstart.history.without_failed_studies` leaves out."""
+    """Ids of the studies that have trials but none that succeeded (an ``ok`` status and
+    a finite score): those :func:`warmstart.history.without_failed_studies` leaves out."""
     score = trials["score"].to_numpy(dtype=float, na_value=np.nan)
     good = set(trials.loc[(trials["status"] == "ok").to_numpy() & np.isfinite(score),
                           "study_id"])
-    return sorted(set(studies["study_id"]) - good)
+    return sorted(set(studies["study_id"]) & (set(trials["study_id"]) - good))
 
 
 def _refuse_problems(tables: dict[str, pd.DataFrame], source: Any, version: int) -> None:
