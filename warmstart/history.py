@@ -13,7 +13,8 @@ study, its trials and its dataset row only once a study file holding it exists, 
 writer killed at any moment leaves nothing visible behind (``kb check --repair``
 removes what it left, see :mod:`warmstart.maintenance`). Rows are de-duplicated by key
 on read (a dataset logged by several studies keeps its earliest row), which is what lets
-compaction merge files beside live readers and writers. No locks anywhere: see
+compaction merge files beside live readers and writers. Readers and writers take no
+locks (only compactions hold one, against each other): see
 :mod:`warmstart.storage` for what this needs from a (network) filesystem. Any engine
 can read the tables, e.g. ``pandas.read_parquet("<history>/trials")``; readers of the
 raw files should apply the same visibility rule.

@@ -1,18 +1,23 @@
 """Keeping a team history healthy: info, check, repair, compact, migrate, export, import.
 
-All of these work beside live readers and writers, without locks (see
-:mod:`warmstart.storage` for the file rules they rely on).
+All of these work beside live readers and writers, who take no locks (see
+:mod:`warmstart.storage` for the file rules they rely on); only a compaction holds one,
+against another compaction.
 
 * :func:`check` verifies the format marker, every file's schema, that every trial belongs
   to a committed study and every study to a dataset, unique identifiers, finite scores
-  for ``ok`` trials, known catalogue versions and valid JSON. ``repair=True`` removes
-  temporary and orphan files older than a grace period (leftovers of killed writers;
-  younger ones may belong to a writer still running) and moves unreadable files to
-  ``<history>/quarantine/``. It never touches committed rows.
+  for ``ok`` trials, known catalogue versions and valid JSON, and notes studies whose
+  every trial failed (kept; the readers that answer questions leave them out).
+  ``repair=True`` removes temporary and orphan files older than a grace period
+  (leftovers of killed writers; younger ones may belong to a writer still running) and
+  moves unreadable or foreign files to ``<history>/quarantine/``, never over a file
+  there. It never deletes a file it did not recognise, nor touches committed rows.
 * :func:`compact` merges each table's files into one ``merged-*.parquet`` file. It writes
   the merged file first, then deletes only the files it listed before merging and whose
   every row the merged file holds; readers de-duplicate by key meanwhile, and a file a
-  writer commits during compaction is not deleted.
+  writer commits during compaction is not deleted. One compaction runs at a time (an
+  ``O_EXCL`` lock file with a stale-lock rule); :func:`info` and :func:`compact` refuse a
+  foreign file in a table folder, pointing to ``check --repair``.
 * :func:`export` writes one portable ZIP file (no compression: Parquet is already
   compressed) holding ``warmstart-export.json`` (kind, format version, counts, content
   hash) and ``datasets.parquet``, ``studies.parquet``, ``trials.parquet``.
@@ -720,10 +725,11 @@ MAX_IMPORT_BYTES = 2 * 1024 ** 3
 def _export_members(src: Path, max_bytes: int) -> dict[str, bytes]:
     """The marker and table members of the export ``src``, read in pieces.
 
-    Refuses the file before reading when its directory declares more than
-    ``max_bytes`` uncompressed, and while reading when the members hold more than
-    they declare (``zipfile`` stops a member at its declared size and checks its
-    CRC), so a small crafted file cannot make the import hold more than ``max_bytes``.
+    Refuses the file before inflating anything when its directory declares more than
+    ``max_bytes`` uncompressed. A member that holds more than it declares is stopped at
+    its declared size by ``zipfile``, whose CRC check then fails; the running count is a
+    second guard. So a small crafted file cannot make the import hold more than
+    ``max_bytes``.
     """
     need = [EXPORT_MARKER, *(f"{t}.parquet" for t in SCHEMAS)]
     with zipfile.ZipFile(src) as zf:
