@@ -60,14 +60,19 @@ def kb_info_cmd(kb_path, as_json) -> None:
 @kb_group.command("check")
 @kb_option
 @click.option("--repair", is_flag=True,
-              help="Remove leftovers of killed writers; set unreadable files aside.")
+              help="Remove leftovers of killed writers; move unreadable and foreign "
+                   "files to quarantine/ (never deleted).")
 @click.option("--grace", "grace_seconds", type=float, default=None,
               help="Leftovers younger than this many seconds may belong to a running "
                    "writer and are left alone [default: 900].")
 @json_option
 @handle_errors
 def kb_check_cmd(kb_path, repair, grace_seconds, as_json) -> None:
-    """Verify the history's integrity (exit code 1 when a problem remains)."""
+    """Verify the history's integrity (exit code 1 when a problem remains).
+
+    Notes (exit code 0) include studies whose every trial failed: they are kept, and
+    suggest, backtest and similar leave them out.
+    """
     report = open_history(kb_path).check(repair=repair, grace_seconds=grace_seconds)
     if as_json:
         emit_json(report.to_dict())
