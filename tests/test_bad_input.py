@@ -325,6 +325,8 @@ CASES = [  # id, builder(w) -> CLI args, substring the error must contain
     ("export member declaring 3 GiB", lambda w: _import_declaring(w, 3 << 30),
      "kb import reads at most 2,147,483,648"),
     ("export member lying about its size", _import_lying, "Bad CRC-32"),
+    ("export member of 16 MiB of zeros", lambda w: w.import_(trials=bytes(16 << 20)),
+     "Parquet magic bytes not found"),
     # foreign files in table folders: one line pointing to kb check --repair
     ("a data set copied into datasets/",
      lambda w: w.foreign("datasets/copy.parquet", iris_parquet()), "kb check --repair"),
@@ -363,7 +365,7 @@ def test_malformed_input_is_refused_and_nothing_written(tmp_path, template, buil
     assert dir_digest(w.kb) == before
 
 
-def test_at_least_eighty_four_distinct_malformed_inputs(tmp_path, template):
+def test_at_least_eighty_five_distinct_malformed_inputs(tmp_path, template):
     # Each case is a different input, not another name for one already listed: its
     # arguments, with files replaced by their bytes and directories by their place,
     # together with the state of its history (reference: common practice).
@@ -381,7 +383,7 @@ def test_at_least_eighty_four_distinct_malformed_inputs(tmp_path, template):
             return ("dir " if path.is_dir() else "absent ") + str(path.relative_to(w.root))
 
         inputs.add((tuple(map(content, args)), tuple(sorted(dir_digest(w.kb).items()))))
-    assert len(inputs) == len(CASES) >= 84
+    assert len(inputs) == len(CASES) >= 85
 
 
 def test_read_only_history_is_refused(tmp_path, template, monkeypatch):

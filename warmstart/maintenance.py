@@ -43,6 +43,7 @@ import math
 import os
 import shutil
 import socket
+import tempfile
 import uuid
 import zipfile
 import zlib
@@ -714,7 +715,8 @@ def export(kb: KnowledgeBase, file: str | os.PathLike) -> dict[str, Any]:
             "content_hash": marker["content_hash"]}
 
 
-# An export's members are read in pieces of this size, counting what they really hold.
+# An export's members are copied to a temporary directory in pieces of this size,
+# counting what they really hold.
 READ_CHUNK_BYTES = 1 << 20
 # The most an import reads: the marker and the three tables, uncompressed. The demo
 # history exports to under 1 MB and a million trials to about 60 MB; this leaves room
@@ -722,14 +724,15 @@ READ_CHUNK_BYTES = 1 << 20
 MAX_IMPORT_BYTES = 2 * 1024 ** 3
 
 
-def _export_members(src: Path, max_bytes: int) -> dict[str, bytes]:
-    """The marker and table members of the export ``src``, read in pieces.
+def _export_members(src: Path, max_bytes: int, into: Path) -> dict[str, Path]:
+    """Copy the marker and table members of the export ``src`` into the directory
+    ``into``, in pieces; returns their paths.
 
     Refuses the file before inflating anything when its directory declares more than
     ``max_bytes`` uncompressed. A member that holds more than it declares is stopped at
     its declared size by ``zipfile``, whose CRC check then fails; the running count is a
-    second guard. So a small crafted file cannot make the import hold more than
-    ``max_bytes``.
+    second guard. The members go to disk, not memory, so a small crafted file cannot
+    make the import hold more than a piece in memory, nor write more than ``max_bytes``.
     """
     need = [EXPORT_MARKER, *(f"{t}.parquet" for t in SCHEMAS)]
     with zipfile.ZipFile(src) as zf:
@@ -744,15 +747,14 @@ def _export_members(src: Path, max_bytes: int) -> dict[str, bytes]:
                                 f"import reads at most {max_bytes:,}")
         out, total = {}, 0
         for n in need:
-            buf = bytearray()
-            with zf.open(infos[n]) as fh:
+            out[n] = into / n
+            with zf.open(infos[n]) as fh, open(out[n], "wb") as dest:
                 while chunk := fh.read(READ_CHUNK_BYTES):
                     total += len(chunk)
                     if total > max_bytes:
                         raise BadInputError(f"{src} holds more than {max_bytes:,} bytes "
                                             "uncompressed (more than it declares)")
-                    buf += chunk
-            out[n] = bytes(buf)
+                    dest.write(chunk)
     return out
 
 
@@ -769,12 +771,14 @@ def _check_content_hash(src: Path, marker: dict[str, Any], tables: dict[str, pa.
                             "states")
 
 
-def _table_of(src: Path, t: str, blob: bytes) -> pa.Table:
-    """Member ``t`` of an export as a table of the current schema."""
+def _table_of(src: Path, t: str, member: Path) -> pa.Table:
+    """Member ``t`` of an export (copied to ``member``) as a table of the current schema."""
     try:
-        raw = pq.read_table(pa.BufferReader(blob))
+        raw = pq.read_table(member)
     except (OSError, pa.ArrowException) as exc:
-        raise BadInputError(f"{src}: {t}.parquet is unreadable ({exc})") from None
+        why = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
+        raise BadInputError(f"{src}: {t}.parquet is unreadable "
+                            f"({why.replace(str(member), f'{t}.parquet')})") from None
     missing = [f.name for f in SCHEMAS[t] if f.name not in raw.schema.names]
     if missing:
         raise BadInputError(f"{src}: {t}.parquet lacks columns {', '.join(missing)}")
@@ -795,15 +799,25 @@ def read_export(file: str | os.PathLike, max_bytes: int = MAX_IMPORT_BYTES
     src = Path(file)
     if not src.is_file():
         raise BadInputError(f"export file not found: {src}")
+    with tempfile.TemporaryDirectory(prefix="warmstart-import-") as tmp:
+        try:
+            members = _export_members(src, max_bytes, Path(tmp))
+        except zipfile.BadZipFile as exc:
+            why = str(exc) if "CRC" in str(exc) else "not a ZIP file"
+            raise BadInputError(f"{src} is not a warmstart export ({why})") from None
+        except (OSError, EOFError, NotImplementedError, RuntimeError, zlib.error) as exc:
+            raise BadInputError(f"{src} is not a readable warmstart export ({exc})"
+                                ) from None
+        marker = _export_marker(src, members[EXPORT_MARKER])
+        tables = {t: _table_of(src, t, members[f"{t}.parquet"]) for t in SCHEMAS}
+    _check_content_hash(src, marker, tables)
+    return marker, tables
+
+
+def _export_marker(src: Path, member: Path) -> dict[str, Any]:
+    """The export's marker, validated: its kind and an importable format version."""
     try:
-        blobs = _export_members(src, max_bytes)
-    except zipfile.BadZipFile as exc:
-        why = str(exc) if "CRC" in str(exc) else "not a ZIP file"
-        raise BadInputError(f"{src} is not a warmstart export ({why})") from None
-    except (OSError, EOFError, NotImplementedError, RuntimeError, zlib.error) as exc:
-        raise BadInputError(f"{src} is not a readable warmstart export ({exc})") from None
-    try:
-        marker = json.loads(blobs[EXPORT_MARKER].decode("utf-8"))
+        marker = json.loads(member.read_bytes().decode("utf-8"))
     except (UnicodeDecodeError, json.JSONDecodeError):
         raise BadInputError(f"{src} has an invalid {EXPORT_MARKER}") from None
     if not isinstance(marker, dict) or marker.get("kind") != EXPORT_KIND:
@@ -818,9 +832,7 @@ def read_export(file: str | os.PathLike, max_bytes: int = MAX_IMPORT_BYTES
             f"{src} has format version {version!r} (written by "
             f"{marker.get('created_by', '?')}); this warmstart {__version__} imports "
             f"format versions 1 to {FORMAT_VERSION}: upgrade warmstart")
-    tables = {t: _table_of(src, t, blobs[f"{t}.parquet"]) for t in SCHEMAS}
-    _check_content_hash(src, marker, tables)
-    return marker, tables
+    return marker
 
 
 def _signatures(studies: pd.DataFrame, trials: pd.DataFrame) -> pd.Series:
