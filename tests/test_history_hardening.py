@@ -283,6 +283,25 @@ def test_foreign_file_is_reported_in_one_line_and_moved_aside(tmp_path, filled, 
     assert len(list(aside.parent.iterdir())) == 2 and aside.read_bytes() == content
 
 
+def test_readers_name_a_foreign_studies_file_or_read_past_it(tmp_path, filled, fps):
+    query = tmp_path / "q.json"
+    query.write_text(fps["cancer"].to_json())
+    asked = {"similar": ["similar", "--fingerprint", query],
+             "backtest": ["backtest", "-f", "random_forest", "--strategies", "defaults"],
+             "suggest": ["suggest", "--fingerprint", query, "-f", "random_forest"]}
+    alone = cli(*asked["suggest"], "--kb", filled.path).output
+    (filled.path / "studies" / "iris.parquet").write_bytes(iris_parquet())
+    for what in ("similar", "backtest"):
+        r = cli(*asked[what], "--kb", filled.path)
+        lines = r.output.strip().splitlines()
+        assert r.exit_code == 2 and len(lines) == 1, r.output
+        assert "studies/iris.parquet is not one of its files" in lines[0], lines[0]
+        assert "kb check --repair" in lines[0]
+    # suggest reads only its family's study rows: the file's rows (no family) are not
+    # among them, and the answer is the same
+    assert cli(*asked["suggest"], "--kb", filled.path).output == alone
+
+
 # -- 11. concurrent compactions (real processes) ------------------------------------------
 def compact_process(kb: KnowledgeBase, pause: float | None = None) -> subprocess.Popen:
     env = {**os.environ, "PYTHONPATH": str(ROOT)}

@@ -308,11 +308,20 @@ class KnowledgeBase:
         :func:`without_failed_studies`) unless ``include_failed`` is True, as the
         maintenance tools (check, info, export, import, compact) ask.
         """
-        if include_failed:
-            return visible_tables(self.path, family, task, trial_columns)
-        need = None if trial_columns is None else list(dict.fromkeys(
+        need = None if trial_columns is None or include_failed else list(dict.fromkeys(
             [*trial_columns, "study_id", "status", "score"]))
-        out = without_failed_studies(visible_tables(self.path, family, task, need))
+        try:
+            out = visible_tables(self.path, family, task, need or trial_columns)
+        except BadInputError:
+            raise
+        except (TypeError, ValueError, pa.ArrowException):
+            # a Parquet file of another schema reads as rows of nulls, which fail
+            # later: name it, and how to set it aside, rather than the failure
+            maintenance.refuse_foreign_files(self.path, "read")
+            raise
+        if include_failed:
+            return out
+        out = without_failed_studies(out)
         if trial_columns is not None:
             out["trials"] = out["trials"].select(trial_columns)
         return out
