@@ -50,6 +50,9 @@ def kb_info_cmd(kb_path, as_json) -> None:
         rows = [[r["family"], r["task"], r["metric"], r["studies"], r["datasets"], r["trials"]]
                 for r in info["by_family"]]
         click.echo(table(rows, ["family", "task", "metric", "studies", "datasets", "trials"]))
+    if info["studies_all_failed"]:
+        click.echo(f"studies with no successful trial: {info['studies_all_failed']} (kept; "
+                   "suggest, backtest and similar leave them out)")
     versions = ", ".join(f"v{k}: {v}" for k, v in
                          info["fingerprints_by_catalogue_version"].items())
     click.echo(f"fingerprints by catalogue version: {versions or 'none'}")
@@ -58,14 +61,19 @@ def kb_info_cmd(kb_path, as_json) -> None:
 @kb_group.command("check")
 @kb_option
 @click.option("--repair", is_flag=True,
-              help="Remove leftovers of killed writers; set unreadable files aside.")
+              help="Remove leftovers of killed writers; move unreadable and foreign "
+                   "files to quarantine/ (never deleted).")
 @click.option("--grace", "grace_seconds", type=float, default=None,
               help="Leftovers younger than this many seconds may belong to a running "
                    "writer and are left alone [default: 900].")
 @json_option
 @handle_errors
 def kb_check_cmd(kb_path, repair, grace_seconds, as_json) -> None:
-    """Verify the history's integrity (exit code 1 when a problem remains)."""
+    """Verify the history's integrity (exit code 1 when a problem remains).
+
+    Notes (exit code 0) include studies whose every trial failed: they are kept, and
+    suggest, backtest and similar leave them out.
+    """
     report = open_history(kb_path).check(repair=repair, grace_seconds=grace_seconds)
     if as_json:
         emit_json(report.to_dict())
@@ -89,10 +97,18 @@ def kb_check_cmd(kb_path, repair, grace_seconds, as_json) -> None:
 @json_option
 @handle_errors
 def kb_compact_cmd(kb_path, as_json) -> None:
-    """Merge each table's many small files into one (content unchanged)."""
+    """Merge each table's many small files into one (content unchanged).
+
+    One compaction runs at a time: while another holds the history's lock, this one
+    says so and exits 0. A lock whose process is gone, or older than an hour, is taken
+    over.
+    """
     out = open_history(kb_path).compact()
     if as_json:
         emit_json(out)
+        return
+    if not out["compacted"]:
+        click.echo(f"another compaction is running ({out['running']}); nothing done")
         return
     b, a = out["before"], out["after"]
     rows = [[what, b[key], a[key]] for what, key in
@@ -125,7 +141,11 @@ def kb_export_cmd(file, kb_path, as_json) -> None:
 @json_option
 @handle_errors
 def kb_import_cmd(file, kb_path, as_json) -> None:
-    """Merge another team's exported FILE; studies already present are skipped."""
+    """Merge another team's exported FILE; studies already present are skipped.
+
+    The file is checked before anything is written: its tables must have the content
+    hash its marker states, and it may hold at most 2 GiB uncompressed.
+    """
     out = open_history(kb_path).import_(file)
     if as_json:
         emit_json(out)

@@ -136,7 +136,7 @@ def test_check_finds_clashing_ids_and_unreadable_files(kb, fps):
     # A file that is not Parquet: readers refuse with a message, repair sets it aside.
     (kb.path / "trials" / "garbage.parquet").write_bytes(b"\x89PNG\r\n\x1a\n" + bytes(100))
     r = cli("kb", "info", "--kb", kb.path)
-    assert r.exit_code == 2 and "garbage.parquet is unreadable" in r.output
+    assert r.exit_code == 2 and "garbage.parquet is not one of its files" in r.output
     r = cli("kb", "check", "--kb", kb.path, "--repair")
     assert "moved to quarantine/" in r.output
     assert (kb.path / "quarantine" / "trials" / "garbage.parquet").is_file()

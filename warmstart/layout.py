@@ -130,6 +130,18 @@ def dedupe(table: pa.Table, name: str) -> pa.Table:
 
 
 # -- the format marker ------------------------------------------------------------------
+def format_version_of(value: Any) -> int | None:
+    """``value`` as a format version, or None when it is not one.
+
+    A format version is a JSON integer >= 0. The string ``"1"``, the float ``1.5`` and the
+    boolean ``true`` are not (``int()`` would quietly accept all three). The history's
+    marker and the export marker are both checked with this function.
+    """
+    if isinstance(value, bool) or not isinstance(value, int) or value < 0:
+        return None
+    return value
+
+
 def read_marker(root: Path, hint: str = "") -> tuple[dict[str, Any], int]:
     """The parsed marker of the history at ``root`` and its format version.
 
@@ -141,9 +153,13 @@ def read_marker(root: Path, hint: str = "") -> tuple[dict[str, Any], int]:
         raise BadInputError(f"{root} is not a warmstart history (no {FORMAT_FILE}){hint}")
     try:
         meta = json.loads(path.read_text(encoding="utf-8"))
-        version = int(meta["format_version"])
+        raw = meta["format_version"]
     except (ValueError, KeyError, TypeError):
         raise BadInputError(f"{path} is not a valid history marker file") from None
+    version = format_version_of(raw)
+    if version is None:
+        raise BadInputError(f"{path} is not a valid history marker file (format_version "
+                            f"{raw!r} is not a format version (a whole number >= 0))")
     return meta, version
 
 
@@ -167,7 +183,7 @@ def read_current_marker(root: Path) -> dict[str, Any]:
 
 def marker_is_current(meta: dict[str, Any]) -> bool:
     """Whether a parsed marker names this format version and exactly these tables."""
-    return (meta.get("format_version") == FORMAT_VERSION
+    return (format_version_of(meta.get("format_version")) == FORMAT_VERSION
             and sorted(meta.get("tables", [])) == sorted(TABLE_DIRS))
 
 
@@ -179,5 +195,6 @@ def write_marker(root: Path, **extra: Any) -> None:
 
 
 __all__ = ["DELETIONS", "DELETION_SCHEMA", "FORMAT1_STUDIES", "FORMAT_FILE", "FORMAT_VERSION",
-           "KEYS", "ORDER", "SCHEMAS", "TABLE_DIRS", "dedupe", "table_schema",
-           "marker_is_current", "read_current_marker", "read_marker", "write_marker"]
+           "KEYS", "ORDER", "SCHEMAS", "TABLE_DIRS", "dedupe", "format_version_of",
+           "marker_is_current", "read_current_marker", "read_marker", "table_schema",
+           "write_marker"]

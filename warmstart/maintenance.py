@@ -1,27 +1,35 @@
 """Keeping a team history healthy: info, check, repair, compact, export, import.
 
-All of these work beside live readers and writers, without locks (see
-:mod:`warmstart.storage` for the file rules they rely on).
+All of these work beside live readers and writers, who take no locks (see
+:mod:`warmstart.storage` for the file rules they rely on); only a compaction holds one,
+against another compaction.
 
 * :func:`check` verifies the format marker, every file's schema, that every trial belongs
   to a committed study and every study to a dataset, unique identifiers, finite scores
-  for ``ok`` trials, known catalogue versions and valid JSON. ``repair=True`` removes
-  temporary and orphan files older than a grace period (leftovers of killed writers;
-  younger ones may belong to a writer still running) and moves unreadable files to
-  ``<history>/quarantine/``. It never touches committed rows.
+  for ``ok`` trials, known catalogue versions and valid JSON, and notes studies whose
+  every trial failed (kept; the readers that answer questions leave them out) and studies
+  logged twice. ``repair=True`` removes temporary and orphan files older than a grace
+  period (leftovers of killed writers; younger ones may belong to a writer still running)
+  and moves unreadable or foreign files to ``<history>/quarantine/``, never over a file
+  there. It never deletes a file it did not recognise, nor touches committed rows.
 * :func:`compact` merges each table's files into one ``merged-*.parquet`` file, leaving
   out the rows of deleted studies (those with a tombstone, see :mod:`warmstart.records`).
   It writes the merged file first, then deletes only the files it listed before merging
   whose every row the merged file holds or belongs to a deleted study; readers
   de-duplicate by key and skip deleted studies meanwhile, and a file a writer commits
-  during compaction is not deleted. Tombstones are merged too, never dropped.
+  during compaction is not deleted. Tombstones are merged too, never dropped. One
+  compaction runs at a time (an ``O_EXCL`` lock file with a stale-lock rule); :func:`info`
+  and :func:`compact` refuse a foreign file in a table folder, pointing to
+  ``check --repair``.
 * :func:`export` writes one portable ZIP file (no compression: Parquet is already
   compressed) holding ``warmstart-export.json`` (kind, format version, counts, content
   hash) and ``datasets.parquet``, ``studies.parquet``, ``trials.parquet``; deleted
   studies are left out. :func:`import_` merges such a file: studies already present, by
   id or by content (same dataset, family, task, metric and trials), and studies deleted
-  here are skipped, so importing twice adds nothing. Exports of format 1 are converted
-  as they are read.
+  here are skipped, so importing twice adds nothing. It first recomputes the content
+  hash (a mismatch is refused) and reads the members in pieces, at most
+  :data:`MAX_IMPORT_BYTES` uncompressed, so a crafted file cannot exhaust memory.
+  Exports of format 1 are converted as they are read.
 * ``migrate`` (older formats to this one) is in :mod:`warmstart.migrations`.
 
 Nothing is ever loaded with pickle: tables are Parquet, configurations JSON.
@@ -34,7 +42,11 @@ import io
 import json
 import math
 import os
+import socket
+import tempfile
+import uuid
 import zipfile
+import zlib
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
@@ -56,6 +68,7 @@ from warmstart.layout import (
     KEYS,
     SCHEMAS,
     dedupe,
+    format_version_of,
     marker_is_current,
     read_marker,
     table_schema,
@@ -136,8 +149,7 @@ class CheckReport:
 def _schema_mismatch(path: Path, expected: pa.Schema) -> str | None:
     """Why ``path`` is not a readable Parquet file of ``expected``; None when it is."""
     try:
-        got = pq.read_schema(path)
-        pq.ParquetFile(path).metadata  # noqa: B018 - the footer must parse too
+        got = pq.ParquetFile(path).schema_arrow  # the footer must parse
     except (OSError, pa.ArrowException) as exc:
         return str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
     for f in expected:
@@ -213,6 +225,15 @@ def content_problems(datasets: pd.DataFrame, studies: pd.DataFrame, trials: pd.D
         "datasets whose meta-features or warnings are not valid JSON")
 
 
+def failed_study_ids(studies: pd.DataFrame, trials: pd.DataFrame) -> list[str]:
+    """Ids of the studies that have trials but none that succeeded (an ``ok`` status and
+    a finite score): those :func:`warmstart.history.without_failed_studies` leaves out."""
+    score = trials["score"].to_numpy(dtype=float, na_value=np.nan)
+    good = set(trials.loc[(trials["status"] == "ok").to_numpy() & np.isfinite(score),
+                          "study_id"])
+    return sorted(set(studies["study_id"]) & (set(trials["study_id"]) - good))
+
+
 def _refuse_problems(tables: dict[str, pd.DataFrame], source: Any, version: int) -> None:
     """Raise :class:`BadInputError` naming the first problem :func:`content_problems`
     finds in rows about to be written from ``source``."""
@@ -271,7 +292,7 @@ def check(kb: KnowledgeBase, repair: bool = False,
                 for t in SCHEMAS}
     _check_leftovers(root, per_file, grace, repair, report)
     _check_identifiers(per_file, report)
-    visible = kb.tables()
+    visible = kb.tables(include_failed=True)
     content_problems(visible["datasets"], visible["studies"], visible["trials"], report)
     twins = visible["studies"][visible["studies"]["content_hash"].duplicated(keep=False)
                                & visible["studies"]["content_hash"].notna()]
@@ -279,6 +300,12 @@ def check(kb: KnowledgeBase, repair: bool = False,
         report.findings.append(Finding("studies logged twice", NOTE, (
             f"{len(twins)} studies share their content with another (e.g. "
             f"{', '.join(twins['study_id'].str[:12].head(EXAMPLES))}): 'kb delete' one")))
+    failed = failed_study_ids(visible["studies"], visible["trials"])
+    if failed:
+        report.findings.append(Finding(
+            "studies with a successful trial", NOTE, f"{len(failed)} studies whose every "
+            f"trial failed (e.g. {', '.join(failed[:EXAMPLES])}): kept, but suggest, "
+            "backtest and similar leave them out"))
     report.counts = {"files": sum(len(visible_files(root / t)) for t in SCHEMAS),
                      **{t: int(len(v)) for t, v in visible.items()}}
     return report
@@ -287,21 +314,45 @@ def check(kb: KnowledgeBase, repair: bool = False,
 _PerFile = dict[str, list[tuple[Path, pa.Table]]]  # table -> (file, its rows)
 
 
+def foreign_files(root: Path) -> list[tuple[str, Path, str]]:
+    """Files in the table folders that are not history files: ``(table, path, why)`` for
+    each ``.parquet`` file that is not Parquet, or not of its table's schema (a data
+    set copied in by mistake, a file of another tool). Reads one footer per file."""
+    return [(table, f, why) for table, schema in SCHEMAS.items()
+            for f in visible_files(root / table) if (why := _schema_mismatch(f, schema))]
+
+
+def refuse_foreign_files(root: Path, doing: str) -> None:
+    """Raise one line naming the first foreign file and pointing to ``--repair``."""
+    found = foreign_files(root)
+    if found:
+        table, f, why = found[0]
+        more = f" and {len(found) - 1} more" if len(found) > 1 else ""
+        raise BadInputError(
+            f"cannot {doing} history {root}: {table}/{f.name} is not one of its files "
+            f"({why}){more}; move foreign files aside with 'warmstart kb check --repair "
+            f"--kb {root}'")
+
+
+def _set_aside(root: Path, table: str, f: Path) -> Path:
+    """Move ``f`` to ``quarantine/<table>/``, never over a file already there."""
+    dest = root / QUARANTINE / table
+    dest.mkdir(parents=True, exist_ok=True)
+    target = dest / f.name
+    while target.exists():
+        target = dest / f"{f.stem}-{uuid.uuid4().hex[:8]}{f.suffix}"
+    os.rename(f, target)
+    return target
+
+
 def _check_files(root: Path, repair: bool, report: CheckReport) -> bool:
-    """Every file readable, with its table's schema (with ``repair``: bad ones moved to
-    ``quarantine/``). Returns whether every remaining file is readable."""
-    bad_files, n_files = [], 0
-    for table, schema in (*SCHEMAS.items(), (DELETIONS, DELETION_SCHEMA)):
-        for f in visible_files(root / table):
-            n_files += 1
-            why = _schema_mismatch(f, schema)
-            if why:
-                bad_files.append((table, f, why))
+    """Every file readable, with its table's schema (with ``repair``: foreign ones moved
+    to ``quarantine/``, never deleted). Returns whether every remaining file is readable."""
+    n_files = sum(len(visible_files(root / t)) for t in (*SCHEMAS, DELETIONS))
+    bad_files = foreign_files(root)
     if bad_files and repair:
         for table, f, _why in bad_files:
-            dest = root / QUARANTINE / table
-            dest.mkdir(parents=True, exist_ok=True)
-            os.rename(f, dest / f.name)
+            _set_aside(root, table, f)
         report.findings.append(Finding("readable files", REPAIRED, f"{len(bad_files)} files "
                                        f"moved to {QUARANTINE}/"))
         bad_files = []
@@ -391,15 +442,19 @@ def content_hash(tables: dict[str, pd.DataFrame]) -> str:
 
 def summary(kb: KnowledgeBase) -> dict[str, Any]:
     """Row counts, file count and content hash of what readers see."""
-    t = kb.tables()
+    t = kb.tables(include_failed=True)
     return {"files": sum(len(visible_files(kb.path / n)) for n in SCHEMAS),
             **{n: int(len(v)) for n, v in t.items()}, "content_hash": content_hash(t)}
 
 
 def info(kb: KnowledgeBase) -> dict[str, Any]:
     """Counts per family, task and metric, fingerprints per catalogue version, files and
-    size on disk (what ``warmstart kb info`` prints)."""
-    t = kb.tables()
+    size on disk (what ``warmstart kb info`` prints).
+
+    A foreign file in a table folder is refused with one line pointing to
+    ``kb check --repair`` (see :func:`refuse_foreign_files`)."""
+    refuse_foreign_files(kb.path, "read")
+    t = kb.tables(include_failed=True)
     studies, trials, datasets = t["studies"], t["trials"], t["datasets"]
     per = []
     if len(studies):
@@ -420,12 +475,19 @@ def info(kb: KnowledgeBase) -> dict[str, Any]:
         "trials": int(len(trials)),
         "files": sum(len(visible_files(kb.path / tb)) for tb in SCHEMAS),
         "bytes_on_disk": int(size),
+        "studies_all_failed": len(failed_study_ids(studies, trials)),
         "by_family": per,
         "fingerprints_by_catalogue_version": {int(k): int(v) for k, v in versions.items()},
     }
 
 
 # -- compact ----------------------------------------------------------------------------
+COMPACT_LOCK = ".compact.lock"
+# A lock older than this is taken over whoever holds it: compacting even a million-trial
+# history takes minutes, so a holder this old has died on another host.
+STALE_LOCK_SECONDS = 3600.0
+
+
 def compact(kb: KnowledgeBase) -> dict[str, Any]:
     """Merge each table's committed rows into one file, then delete the merged files.
 
@@ -435,24 +497,145 @@ def compact(kb: KnowledgeBase) -> dict[str, Any]:
     are deleted; orphans and in-flight files are left alone). Deleted studies' rows are
     dropped; their tombstones are merged and kept.
 
+    One compaction runs at a time: it holds ``<history>/.compact.lock``, created with
+    ``O_EXCL``. A later one returns at once with ``compacted`` False and who holds the
+    lock. A lock is stale, and taken over, when its holder's process on this host is
+    gone or when it is older than ``STALE_LOCK_SECONDS`` (an hour). A foreign file in a
+    table folder is refused with one line pointing to ``kb check --repair``.
+
     Returns
     -------
     dict
-        ``before`` and ``after`` summaries (files, rows per table, content hash) and the
-        number of files ``removed``.
+        ``compacted``; when True, ``before`` and ``after`` summaries (files, rows per
+        table, content hash) and the number of files ``removed``; when False,
+        ``running``: which process holds the lock.
     """
     kb._check_writable()
-    before = summary(kb)
-    gone = deleted_ids(kb.path)
-    listed = {t: [(f, read_file(f, SCHEMAS[t])) for f in visible_files(kb.path / t)]
-              for t in SCHEMAS}
-    studies = dedupe(pa.concat_tables([tb for _f, tb in listed["studies"]])
-                     if listed["studies"] else SCHEMAS["studies"].empty_table(), "studies")
-    removed = sum(_merge_table(kb.path / table, table, listed[table], studies, gone)
-                  for table in ("datasets", "trials", "studies"))
-    removed += _merge_deletions(kb.path / DELETIONS)
-    after = summary(kb)
-    return {"path": str(kb.path), "before": before, "after": after, "removed": removed}
+    lock, mine = take_compact_lock(kb.path)
+    if lock is None:
+        return {"path": str(kb.path), "compacted": False, "running": mine}
+    try:
+        refuse_foreign_files(kb.path, "compact")
+        before = summary(kb)
+        gone = deleted_ids(kb.path)
+        listed = {t: _still_there(kb.path / t, SCHEMAS[t]) for t in SCHEMAS}
+        studies = dedupe(pa.concat_tables([tb for _f, tb in listed["studies"]])
+                         if listed["studies"] else SCHEMAS["studies"].empty_table(),
+                         "studies")
+        removed = sum(_merge_table(kb.path / table, table, listed[table], studies, gone)
+                      for table in ("datasets", "trials", "studies"))
+        removed += _merge_deletions(kb.path / DELETIONS)
+        after = summary(kb)
+    finally:
+        release_compact_lock(lock, mine)
+    return {"path": str(kb.path), "compacted": True, "before": before, "after": after,
+            "removed": removed}
+
+
+def _still_there(directory: Path, schema: pa.Schema) -> list[tuple[Path, pa.Table]]:
+    """Every visible file of a table folder with its rows; a file gone since the listing
+    is skipped (its rows are in whichever merged file replaced it, which stays)."""
+    out = []
+    for f in visible_files(directory):
+        try:
+            out.append((f, read_file(f, schema)))
+        except FileNotFoundError:
+            continue
+    return out
+
+
+def take_compact_lock(root: Path) -> tuple[Path | None, str]:
+    """Take the compaction lock of the history at ``root``.
+
+    Returns ``(lock path, what this process wrote in it)`` when taken, ``(None, who
+    holds it)`` when a live compaction holds it. A stale lock (see :func:`compact`) is
+    renamed aside first, so of several processes finding it stale only one takes over.
+    """
+    lock = root / COMPACT_LOCK
+    mine = json.dumps({"pid": os.getpid(), "host": socket.gethostname(),
+                       "started_at": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+                       "token": uuid.uuid4().hex})
+    for _attempt in range(5):
+        try:
+            fd = os.open(lock, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644)
+        except FileExistsError:
+            text, holder = _lock_holder(lock)
+            if text is None:
+                continue  # released meanwhile: try again
+            if not _lock_is_stale(lock, holder):
+                return None, _describe_holder(holder)
+            _break_stale_lock(lock, text)
+            continue
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(mine)
+            fh.flush()
+            os.fsync(fh.fileno())
+        return lock, mine
+    return None, "another process (the lock kept changing hands)"
+
+
+def release_compact_lock(lock: Path, mine: str) -> None:
+    """Remove the lock if it is still the one this process wrote."""
+    text, _holder = _lock_holder(lock)
+    if text == mine:
+        lock.unlink(missing_ok=True)
+
+
+def _lock_holder(lock: Path) -> tuple[str | None, dict[str, Any] | None]:
+    """The lock's text (None when there is no lock) and its parsed content (None when
+    unreadable, e.g. just created and not yet written)."""
+    try:
+        text = lock.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        return None, None
+    try:
+        holder = json.loads(text)
+    except ValueError:
+        holder = None
+    return text, holder if isinstance(holder, dict) else None
+
+
+def _lock_is_stale(lock: Path, holder: dict[str, Any] | None) -> bool:
+    if age_seconds(lock) >= STALE_LOCK_SECONDS:
+        return True
+    if holder is None or holder.get("host") != socket.gethostname():
+        return False  # another host's process cannot be checked: wait for the age
+    pid = holder.get("pid")
+    if isinstance(pid, bool) or not isinstance(pid, int) or pid <= 0:
+        return False
+    try:
+        os.kill(pid, 0)  # signal 0: only asks whether the process exists
+    except ProcessLookupError:
+        return True
+    except (PermissionError, OverflowError):
+        return False
+    return False
+
+
+def _break_stale_lock(lock: Path, stale_text: str) -> None:
+    """Rename the stale lock aside (atomic: one of several takers wins) and delete it; if
+    what was renamed is not the stale lock read before (a fresh one replaced it
+    meanwhile), link it back unless a lock is there again."""
+    aside = lock.with_name(f"{COMPACT_LOCK}.stale-{uuid.uuid4().hex}")
+    try:
+        os.rename(lock, aside)
+    except FileNotFoundError:
+        return
+    try:
+        if aside.read_text(encoding="utf-8") != stale_text:
+            try:
+                os.link(aside, lock)
+            except FileExistsError:
+                pass
+    finally:
+        aside.unlink(missing_ok=True)
+
+
+def _describe_holder(holder: dict[str, Any] | None) -> str:
+    if holder is None:
+        return "a process that is starting"
+    return (f"process {holder.get('pid', '?')} on {holder.get('host', '?')} since "
+            f"{holder.get('started_at', '?')}")
 
 
 def _merge_table(directory: Path, table: str, files: list[tuple[Path, pa.Table]],
@@ -541,7 +724,7 @@ def export(kb: KnowledgeBase, file: str | os.PathLike) -> dict[str, Any]:
         raise BadInputError(f"export file {dest} is a directory")
     if not dest.parent.is_dir():
         raise BadInputError(f"cannot write {dest}: directory {dest.parent} does not exist")
-    tables = kb.arrow_tables()
+    tables = kb.arrow_tables(include_failed=True)
     frames = {t: v.to_pandas() for t, v in tables.items()}
     marker = {"kind": EXPORT_KIND, "format_version": FORMAT_VERSION,
               "created_by": f"warmstart {__version__}",
@@ -561,52 +744,132 @@ def export(kb: KnowledgeBase, file: str | os.PathLike) -> dict[str, Any]:
             "content_hash": marker["content_hash"]}
 
 
-def read_export(file: str | os.PathLike) -> tuple[dict[str, Any], dict[str, pa.Table]]:
-    """Open an export file and validate it; returns its marker and its three tables."""
+# An export's members are copied to a temporary directory in pieces of this size,
+# counting what they really hold.
+READ_CHUNK_BYTES = 1 << 20
+# The most an import reads: the marker and the three tables, uncompressed. The demo
+# history exports to under 1 MB and a million trials to about 60 MB; this leaves room
+# and still fits in the memory of a laptop.
+MAX_IMPORT_BYTES = 2 * 1024 ** 3
+
+
+def _export_members(src: Path, max_bytes: int, into: Path) -> dict[str, Path]:
+    """Copy the marker and table members of the export ``src`` into the directory
+    ``into``, in pieces; returns their paths.
+
+    Refuses the file before inflating anything when its directory declares more than
+    ``max_bytes`` uncompressed. A member that holds more than it declares is stopped at
+    its declared size by ``zipfile``, whose CRC check then fails; the running count is a
+    second guard. The members go to disk, not memory, so a small crafted file cannot
+    make the import hold more than a piece in memory, nor write more than ``max_bytes``.
+    """
+    need = [EXPORT_MARKER, *(f"{t}.parquet" for t in SCHEMAS)]
+    with zipfile.ZipFile(src) as zf:
+        infos = {i.filename: i for i in zf.infolist()}  # a repeated name: the last wins
+        missing = [n for n in need if n not in infos]
+        if missing:
+            raise BadInputError(f"{src} is not a warmstart export (missing "
+                                f"{', '.join(sorted(missing))})")
+        declared = sum(infos[n].file_size for n in need)
+        if declared > max_bytes:
+            raise BadInputError(f"{src} declares {declared:,} bytes uncompressed; kb "
+                                f"import reads at most {max_bytes:,}")
+        out, total = {}, 0
+        for n in need:
+            out[n] = into / n
+            with zf.open(infos[n]) as fh, open(out[n], "wb") as dest:
+                while chunk := fh.read(READ_CHUNK_BYTES):
+                    total += len(chunk)
+                    if total > max_bytes:
+                        raise BadInputError(f"{src} holds more than {max_bytes:,} bytes "
+                                            "uncompressed (more than it declares)")
+                    dest.write(chunk)
+    return out
+
+
+def _check_content_hash(src: Path, marker: dict[str, Any], tables: dict[str, pa.Table]) -> None:
+    """Refuse an export whose tables do not have the content hash its marker states
+    (damaged in transit, or edited by hand)."""
+    stated = marker.get("content_hash")
+    if not isinstance(stated, str) or len(stated) != 64:
+        raise BadInputError(f"{src} has an invalid {EXPORT_MARKER} (no content_hash)")
+    got = content_hash({t: v.to_pandas() for t, v in tables.items()})
+    if got != stated:
+        raise BadInputError(f"{src} is damaged or was edited: its tables' content hash "
+                            f"{got[:16]}... differs from the {stated[:16]}... its marker "
+                            "states")
+
+
+def _table_of(src: Path, t: str, member: Path, version: int) -> pa.Table:
+    """Member ``t`` of an export (copied to ``member``) as a table of the schema of format
+    ``version``."""
+    schema = table_schema(t, version)
+    try:
+        raw = pq.read_table(member)
+    except (OSError, pa.ArrowException) as exc:
+        why = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
+        raise BadInputError(f"{src}: {t}.parquet is unreadable "
+                            f"({why.replace(str(member), f'{t}.parquet')})") from None
+    missing = [f.name for f in schema if f.name not in raw.schema.names]
+    if missing:
+        raise BadInputError(f"{src}: {t}.parquet lacks columns {', '.join(missing)}")
+    try:
+        return raw.select(schema.names).cast(schema)
+    except (pa.ArrowException, ValueError) as exc:
+        raise BadInputError(f"{src}: {t}.parquet has the wrong column types ({exc})"
+                            ) from None
+
+
+def read_export(file: str | os.PathLike, max_bytes: int = MAX_IMPORT_BYTES
+                ) -> tuple[dict[str, Any], dict[str, pa.Table]]:
+    """Open an export file and validate it; returns its marker and its three tables.
+
+    At most ``max_bytes`` are read, uncompressed (see :func:`_export_members`), and the
+    tables must have the content hash the marker states.
+    """
     src = Path(file)
     if not src.is_file():
         raise BadInputError(f"export file not found: {src}")
-    try:
-        with zipfile.ZipFile(src) as zf:
-            names = set(zf.namelist())
-            need = {EXPORT_MARKER, *(f"{t}.parquet" for t in SCHEMAS)}
-            if not need <= names:
-                raise BadInputError(f"{src} is not a warmstart export (missing "
-                                    f"{', '.join(sorted(need - names))})")
-            marker = json.loads(zf.read(EXPORT_MARKER).decode("utf-8"))
-            blobs = {t: zf.read(f"{t}.parquet") for t in SCHEMAS}
-    except (zipfile.BadZipFile, OSError):
-        raise BadInputError(f"{src} is not a warmstart export (not a ZIP file)") from None
-    except (UnicodeDecodeError, json.JSONDecodeError):
-        raise BadInputError(f"{src} has an invalid {EXPORT_MARKER}") from None
-    if not isinstance(marker, dict) or marker.get("kind") != EXPORT_KIND:
-        raise BadInputError(f"{src} is not a warmstart export (wrong kind)")
-    version = marker.get("format_version")
-    if not isinstance(version, int) or version > FORMAT_VERSION or version < 1:
-        raise BadInputError(
-            f"{src} has format version {version!r} (written by "
-            f"{marker.get('created_by', '?')}); this warmstart {__version__} imports "
-            f"format versions 1 to {FORMAT_VERSION}: upgrade warmstart")
-    tables = {}
-    for t, blob in blobs.items():
-        schema = table_schema(t, version)
+    with tempfile.TemporaryDirectory(prefix="warmstart-import-") as tmp:
         try:
-            raw = pq.read_table(pa.BufferReader(blob))
-        except (OSError, pa.ArrowException) as exc:
-            raise BadInputError(f"{src}: {t}.parquet is unreadable ({exc})") from None
-        missing = [f.name for f in schema if f.name not in raw.schema.names]
-        if missing:
-            raise BadInputError(f"{src}: {t}.parquet lacks columns {', '.join(missing)}")
-        try:
-            tables[t] = raw.select(schema.names).cast(schema)
-        except (pa.ArrowException, ValueError) as exc:
-            raise BadInputError(f"{src}: {t}.parquet has the wrong column types ({exc})"
+            members = _export_members(src, max_bytes, Path(tmp))
+        except zipfile.BadZipFile as exc:
+            why = str(exc) if "CRC" in str(exc) else "not a ZIP file"
+            raise BadInputError(f"{src} is not a warmstart export ({why})") from None
+        except (OSError, EOFError, NotImplementedError, RuntimeError, zlib.error) as exc:
+            raise BadInputError(f"{src} is not a readable warmstart export ({exc})"
                                 ) from None
+        marker = _export_marker(src, members[EXPORT_MARKER])
+        version = format_version_of(marker["format_version"])
+        tables = {t: _table_of(src, t, members[f"{t}.parquet"], version) for t in SCHEMAS}
+    # the hash is of the tables as their format wrote them (it covers column names)
+    _check_content_hash(src, marker, tables)
     if version == 1:  # format-1 study rows, converted as kb migrate does
         tables["studies"] = pa.Table.from_pandas(studies_from_format1(
             tables["studies"].to_pandas(), tables["trials"].to_pandas()),
             schema=SCHEMAS["studies"], preserve_index=False)
     return marker, tables
+
+
+def _export_marker(src: Path, member: Path) -> dict[str, Any]:
+    """The export's marker, validated: its kind and an importable format version."""
+    try:
+        marker = json.loads(member.read_bytes().decode("utf-8"))
+    except (UnicodeDecodeError, json.JSONDecodeError):
+        raise BadInputError(f"{src} has an invalid {EXPORT_MARKER}") from None
+    if not isinstance(marker, dict) or marker.get("kind") != EXPORT_KIND:
+        raise BadInputError(f"{src} is not a warmstart export (wrong kind)")
+    version = format_version_of(marker.get("format_version"))
+    if version is None:
+        raise BadInputError(f"{src} has an invalid {EXPORT_MARKER} (format_version "
+                            f"{marker.get('format_version')!r} is not a format version (a "
+                            "whole number >= 0))")
+    if version > FORMAT_VERSION or version < 1:
+        raise BadInputError(
+            f"{src} has format version {version!r} (written by "
+            f"{marker.get('created_by', '?')}); this warmstart {__version__} imports "
+            f"format versions 1 to {FORMAT_VERSION}: upgrade warmstart")
+    return marker
 
 
 def _signatures(studies: pd.DataFrame, trials: pd.DataFrame) -> pd.Series:
@@ -642,7 +905,7 @@ def import_(kb: KnowledgeBase, file: str | os.PathLike) -> dict[str, Any]:
     frames = {t: dedupe(v, t).to_pandas() for t, v in tables.items()}
     _refuse_problems(frames, file, int(marker["format_version"]))
     kb._check_writable()
-    have = kb.tables()
+    have = kb.tables(include_failed=True)
     new = frames["studies"]
     # a study deleted here stays deleted: its tombstone would hide it anyway
     same_id = (new["study_id"].isin(have["studies"]["study_id"])
