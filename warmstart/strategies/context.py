@@ -143,7 +143,12 @@ class SuggestContext:
 
     def _fit(self, study_id: str, kind: str) -> StudySurrogate:
         pos = self._fit_positions(study_id)
-        return fit_surrogate(self.trials.configs_at(pos), self.trials.column("normalised")[pos],
+        # fitted on the trials the space can hold (clipped into it); a value it has no
+        # place for ('sqrt' where the space has fractions) says nothing about the space
+        configs = [self.full_space.clip(c) for c in self.trials.configs_at(pos)]
+        usable = np.array([c is not None for c in configs], dtype=bool)
+        return fit_surrogate([c for c in configs if c is not None],
+                             self.trials.column("normalised")[pos][usable],
                              self.full_space, kind, self.seed)
 
     def predict(self, study_id: str, kind: str, configs: list[dict[str, Any]],
