@@ -108,15 +108,15 @@ def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, d
         name=name or (Path(data).stem if fingerprint_file is None else None))
     for w in fp.warnings:
         click.echo(f"warning: {w}", err=True)
-    if as_json:
+    if as_json:  # its "metric" says which metric was recorded
         emit_json(study.to_dict())
-    else:
-        what = "new dataset" if study.dataset_is_new else "dataset already in the history"
-        click.echo(f"logged study {study.study_id[:12]} ({study.family}, {study.task}, "
-                   f"{study.metric}): {study.n_trials} trials, {study.n_ok} ok, best "
-                   f"{fmt(study.best_score)}; {what} {study.dataset_id} '{study.label}'")
-    if metric is None:  # on stderr, so that --json's output stays one JSON document
-        click.echo(_metric_note(study), err=True)
+        return
+    what = "new dataset" if study.dataset_is_new else "dataset already in the history"
+    click.echo(f"logged study {study.study_id[:12]} ({study.family}, {study.task}, "
+               f"{study.metric}): {study.n_trials} trials, {study.n_ok} ok, best "
+               f"{fmt(study.best_score)}; {what} {study.dataset_id} '{study.label}'")
+    if metric is None:
+        click.echo(_metric_note(study))
 
 
 def _metric_note(study) -> str:
