@@ -122,11 +122,12 @@ def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, d
 def _metric_note(study) -> str:
     """Which metric the scores were recorded as when the user named none."""
     note = (f"note: no --metric given, so the scores were recorded as {study.metric} (the "
-            f"{study.task} default); if they are another metric, log them with --metric NAME")
+            "default); ")
     if study.task == "classification":
         # a search without scoring= uses the estimator's score(): accuracy for classifiers
-        note += " (a search without scoring= reports accuracy)"
-    return note
+        return note + "a search without scoring= reports accuracy: log those with " \
+                      "--metric accuracy"
+    return note + "for another metric, log with --metric NAME"
 
 
 # -- similar ----------------------------------------------------------------------------
