@@ -27,6 +27,7 @@ from sklearn.svm import SVC
 from threadpoolctl import threadpool_limits
 
 from cli.main import main
+from tests.conftest import dir_digest
 from warmstart import KnowledgeBase
 from warmstart.families import get_family
 
@@ -217,3 +218,33 @@ def test_encoding_places_logged_values_where_the_space_holds_them():
               {"max_features": "sqrt"}]
     held = [space.clip(logged[0]), space.defaults()]
     assert np.array_equal(space.encode(logged), space.encode(held))
+
+
+def test_cli_reports_every_problem_of_a_trials_file_and_writes_nothing(tmp_path):
+    # reference: SVC's parameter constraints (C > 0; gamma 'scale', 'auto' or >= 0) and
+    # balanced accuracy's range [0, 1]
+    X, y = load_wine(return_X_y=True, as_frame=True)
+    data = tmp_path / "wine.csv"
+    X.assign(cultivar=y).to_csv(data, index=False)
+    kb_dir = tmp_path / "kb"
+    runner = CliRunner()
+    assert runner.invoke(main, ["kb", "init", str(kb_dir)]).exit_code == 0
+    before = dir_digest(kb_dir)
+    bad = pd.DataFrame({"C": [1.0, -1.0] + [1.0] * 30, "gamma": ["scale", "x"] + [0.1] * 30,
+                        "score": [0.9, 0.8] + [1.5 + i for i in range(30)]})
+    bad.to_csv(tmp_path / "bad.csv", index=False)
+    pd.DataFrame({"C": [1.0, 2.0], "score": [85.0, 90.5]}).to_csv(tmp_path / "pct.csv",
+                                                                   index=False)
+    args = ["log", str(data), "--target", "cultivar", "--family", "svm_rbf", "--kb",
+            str(kb_dir), "--trials"]
+    res = runner.invoke(main, args + [str(tmp_path / "bad.csv")])
+    assert res.exit_code == 2
+    lines = res.stderr.splitlines()
+    assert lines[0] == "error: the trials table has 32 problems:"
+    assert len(lines) == 1 + 20 + 1 and lines[-1].strip() == "... and 12 more"
+    assert "trial row 2: The 'C' parameter of SVC must be a float" in lines[1]
+    assert "trial row 2: The 'gamma' parameter of SVC" in lines[2]
+    res = runner.invoke(main, args + [str(tmp_path / "pct.csv")])
+    assert res.exit_code == 2 and "divide them by 100" in res.stderr
+    assert len(res.stderr.splitlines()) == 1
+    assert dir_digest(kb_dir) == before  # nothing written
