@@ -170,7 +170,8 @@ def moved_values(given: dict[str, Any], config: dict[str, Any],
     config : dict
         The configuration suggested.
     defaults : dict
-        The family's declared defaults: what a parameter missing from ``given`` was.
+        The estimator's own defaults: what a parameter missing from ``given`` ran with
+        (scikit-learn's ``early_stopping='auto'`` where the space searches true/false).
 
     Returns
     -------
