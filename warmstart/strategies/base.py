@@ -91,6 +91,11 @@ class Suggestion:
     portfolio objective of the suggestions above it (weighted mean over the sources of
     the best normalised score listed so far). ``choice`` is set by ``auto``: the strategy
     it chose, on how many datasets, their mean regrets and the rule.
+
+    ``moved`` says where the configuration differs from the source trial as logged,
+    because it was brought into the active space (see :func:`moved_values`): one
+    ``{"parameter", "from", "to"}`` per value, ``"to"`` None and ``"dropped"`` True for
+    a parameter the space does not search (the estimator's default then applies).
     """
 
     rank: int
@@ -112,16 +117,83 @@ class Suggestion:
     gain: float | None = None
     best_on: tuple[dict[str, Any], ...] = ()
     choice: dict[str, Any] | None = None
+    moved: tuple[dict[str, Any], ...] = ()
 
     def to_dict(self) -> dict[str, Any]:
         d = dict(self.__dict__)
         d["support"] = [dict(s) for s in self.support]
         d["best_on"] = [dict(s) for s in self.best_on]
+        d["moved"] = [dict(m) for m in self.moved]
         d["choice"] = None if self.choice is None else json.loads(json.dumps(self.choice))
         for key in ("distance", "score", "normalised_score", "fit_seconds",
                     "expected_fit_seconds", "expected_normalised", "gain"):
             d[key] = finite_or_none(d[key])
         return d
+
+
+class Suggestions(list):
+    """The ranked suggestions (a list of :class:`Suggestion`, best first), with views for
+    a user's own search."""
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per suggestion (index ``rank``), one flat column per parameter.
+
+        Returns
+        -------
+        DataFrame of shape (n_suggestions, n_parameters)
+            Columns in the order the parameters first appear; a parameter a suggestion
+            leaves out (inactive, or the estimator's default) is missing (NaN) there.
+        """
+        names = list(dict.fromkeys(k for s in self for k in s.config))
+        rows = [[s.config.get(n, np.nan) for n in names] for s in self]
+        frame = pd.DataFrame(rows, columns=names, index=pd.Index([s.rank for s in self],
+                                                                   name="rank"))
+        return frame.infer_objects()
+
+    def to_grid(self, prefix: str = "") -> list[dict[str, list[Any]]]:
+        """The configurations as a ``param_grid`` for scikit-learn's ``GridSearchCV``: one
+        dict per suggestion mapping each parameter to a one-value list, so the search
+        runs exactly these configurations. ``prefix`` names the model's pipeline step
+        (``"model__"``)."""
+        return [{prefix + k: [v] for k, v in s.config.items()} for s in self]
+
+
+def moved_values(given: dict[str, Any], config: dict[str, Any],
+                 defaults: dict[str, Any]) -> tuple[dict[str, Any], ...]:
+    """Where ``config`` (brought into a space) differs from the trial ``given`` as logged.
+
+    Parameters
+    ----------
+    given : dict
+        The logged configuration (out-of-space values, parameters the space does not
+        search and all).
+    config : dict
+        The configuration suggested.
+    defaults : dict
+        The estimator's own defaults: what a parameter missing from ``given`` ran with
+        (scikit-learn's ``early_stopping='auto'`` where the space searches true/false).
+
+    Returns
+    -------
+    tuple of dict
+        ``{"parameter", "from", "to"}`` for each value that changed, in ``config``'s
+        order, then ``{"parameter", "from", "to": None, "dropped": True}`` for each
+        given parameter the configuration leaves out.
+    """
+    out = []
+    for name, value in config.items():
+        before = given.get(name, defaults.get(name, value))
+        if not _same_value(before, value):
+            out.append({"parameter": name, "from": before, "to": value})
+    for name, value in given.items():
+        if name not in config:
+            out.append({"parameter": name, "from": value, "to": None, "dropped": True})
+    return tuple(out)
+
+
+def _same_value(a: Any, b: Any) -> bool:
+    # True == 1 in Python, but a flag and a number are different values here
+    return a == b and isinstance(a, bool) == isinstance(b, bool)
 
 
 def canonical_key(space: SearchSpace, config: dict[str, Any]) -> str:
