@@ -32,7 +32,7 @@ from warmstart.errors import BadInputError
 from warmstart.fingerprint import CATALOGUE, Fingerprint
 from warmstart.fingerprint.catalogue import parse_range, range_problem
 from warmstart.history import KnowledgeBase
-from warmstart.layout import FORMAT_FILE, format_version_of
+from warmstart.layout import FORMAT_FILE, FORMAT_VERSION, format_version_of
 from warmstart.maintenance import (
     COMPACT_LOCK,
     EXPORT_MARKER,
@@ -89,8 +89,9 @@ def export_marker(path: Path) -> dict:
 
 
 @pytest.mark.parametrize("value, good", [
-    (1, True), ("1", False), (1.5, False), (1.0, False), (True, False), (-1, False),
-    (None, False), ([1], False)])
+    (FORMAT_VERSION, True), (str(FORMAT_VERSION), False), (FORMAT_VERSION + 0.5, False),
+    (float(FORMAT_VERSION), False), (True, False), (-1, False), (None, False),
+    ([FORMAT_VERSION], False)])
 def test_history_and_export_agree_on_what_a_version_is(tmp_path, filled, value, good):
     # reference: JSON (RFC 8259) tells integers from strings, floats and booleans
     assert (format_version_of(value) is not None) == good

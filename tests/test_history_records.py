@@ -25,7 +25,7 @@ from warmstart import fingerprint
 from warmstart.families import get_family
 from warmstart.history import KnowledgeBase
 from warmstart.layout import DELETIONS
-from warmstart.maintenance import EXPORT_KIND, EXPORT_MARKER, _parquet_bytes
+from warmstart.maintenance import EXPORT_KIND, EXPORT_MARKER, _parquet_bytes, content_hash
 from warmstart.migrations import _backup_format1, _read_format1
 from warmstart.storage import visible_files
 
@@ -93,8 +93,12 @@ def test_format1_export_imports(tmp_path):
     tables = _read_format1(path)
     old_studies = pa.concat_tables([pq.read_table(f) for f in visible_files(path / "studies")])
     assert "direction" in old_studies.schema.names
+    # its marker's hash is of the format-1 tables, as the export code computes it
+    digest = content_hash({"studies": old_studies.to_pandas(),
+                           **{t: tables[t].to_pandas() for t in ("datasets", "trials")}})
     with zipfile.ZipFile(tmp_path / "v1.zip", "w") as zf:
-        zf.writestr(EXPORT_MARKER, json.dumps({"kind": EXPORT_KIND, "format_version": 1}))
+        zf.writestr(EXPORT_MARKER, json.dumps({"kind": EXPORT_KIND, "format_version": 1,
+                                               "content_hash": digest}))
         zf.writestr("studies.parquet", _parquet_bytes(old_studies))
         for t in ("datasets", "trials"):
             zf.writestr(f"{t}.parquet", _parquet_bytes(tables[t]))

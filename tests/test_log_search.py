@@ -188,8 +188,8 @@ def boosting_history(tmp_path_factory):
     with threadpool_limits(1):  # OpenMP threads only contend on a busy machine
         bare.fit(X, y)
         wrapped.fit(X, y)
-    assert kb.log_search(bare, X, y).n_trials == bare.n_candidates_[0] == 8
-    assert kb.log_search(wrapped, X, y).n_trials == 8
+    assert kb.log_search(bare, X, y).trial_count == bare.n_candidates_[0] == 8
+    assert kb.log_search(wrapped, X, y).trial_count == 8
     assert len(kb.tables()["trials"]) == 16  # every trial landed
     return kb, X.assign(progression=y)
 

@@ -22,6 +22,7 @@ raw files should apply the same visibility rule.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import re
@@ -43,6 +44,7 @@ from warmstart.families import get_family
 from warmstart.filesystems import history_location
 from warmstart.fingerprint import Fingerprint, fingerprint
 from warmstart.layout import (
+    DELETIONS,
     FORMAT_FILE,
     FORMAT_VERSION,
     SCHEMAS,
@@ -236,6 +238,11 @@ def check_writable(root: Path) -> None:
     read-only, before anything is written."""
     for table in TABLE_DIRS:
         d = root / table
+        if table == DELETIONS and not d.is_dir() and root.is_dir():
+            # empty until a first deletion, so a copy that keeps no empty folders (a git
+            # checkout, some sync tools) lacks it: made here, readers need not have it
+            with contextlib.suppress(OSError):
+                d.mkdir()
         if not d.is_dir():
             raise BadInputError(f"history {root} is missing its {table}/ directory")
         if not os.access(d, os.W_OK | os.X_OK):
