@@ -9,7 +9,7 @@ from pathlib import Path
 import click
 
 from cli.common import handle_errors, json_option, kb_option, open_history
-from cli.output import emit_json, table
+from cli.output import emit_json, plural, table
 from warmstart.history import KnowledgeBase, resolve_path
 
 
@@ -43,7 +43,7 @@ def kb_info_cmd(kb_path, as_json) -> None:
         emit_json(info)
         return
     click.echo(f"history {info['path']} (format version {info['format_version']}): "
-               f"{info['datasets']} datasets, {info['studies']} studies, "
+               f"{plural(info['datasets'], 'dataset')}, {plural(info['studies'], 'study')}, "
                f"{info['trials']} trials, {info['files']} files, "
                f"{info['bytes_on_disk'] / 1024:.1f} KiB on disk")
     if info["by_family"]:
@@ -81,7 +81,7 @@ def kb_check_cmd(kb_path, repair, grace_seconds, as_json) -> None:
         c = report.counts
         head = f"history {report.path} (format version {report.format_version})"
         if c:
-            head += (f": {c['datasets']} datasets, {c['studies']} studies, "
+            head += (f": {plural(c['datasets'], 'dataset')}, {plural(c['studies'], 'study')}, "
                      f"{c['trials']} trials in {c['files']} files")
         click.echo(head)
         rows = [[f.check, f.status, f.detail or "-"] for f in report.findings]
@@ -131,7 +131,7 @@ def kb_export_cmd(file, kb_path, as_json) -> None:
     if as_json:
         emit_json(out)
         return
-    click.echo(f"exported {out['datasets']} datasets, {out['studies']} studies, "
+    click.echo(f"exported {plural(out['datasets'], 'dataset')}, {plural(out['studies'], 'study')}, "
                f"{out['trials']} trials to {out['file']} ({out['bytes'] / 1024:.1f} KiB)")
 
 
@@ -169,7 +169,8 @@ def kb_migrate_cmd(kb_path, as_json) -> None:
         click.echo(f"history {out['path']} already has format version {out['to_version']}")
         return
     click.echo(f"migrated {out['path']} from format {out['from_version']} to "
-               f"{out['to_version']}: {out['datasets']} datasets, {out['studies']} studies, "
+               f"{out['to_version']}: {plural(out['datasets'], 'dataset')}, "
+               f"{plural(out['studies'], 'study')}, "
                f"{out['trials']} trials; old file kept at {out['backup']}")
 
 
@@ -200,7 +201,7 @@ def kb_list_cmd(kb_path, as_json) -> None:
             for d in datasets for s in d["studies"]]
     click.echo(table(rows, ["dataset", "id", *_STUDY_HEAD], align="lllllrrrll"))
     n = sum(len(d["studies"]) for d in datasets)
-    click.echo(f"{len(datasets)} datasets, {n} studies")
+    click.echo(f"{plural(len(datasets), 'dataset')}, {plural(n, 'study')}")
 
 
 @kb_group.command("show")

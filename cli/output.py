@@ -40,8 +40,12 @@ def fmt(value: Any) -> str:
 
 
 def plural(n: int, noun: str) -> str:
-    """``1 starting configuration``, ``3 starting configurations``."""
-    return f"{n} {noun}" if n == 1 else f"{n} {noun}s"
+    """``1 starting configuration``, ``3 starting configurations``, ``2 studies``."""
+    if n == 1:
+        return f"{n} {noun}"
+    if noun.endswith("y") and noun[-2:-1] not in "aeiou":
+        return f"{n} {noun[:-1]}ies"
+    return f"{n} {noun}s"
 
 
 FULL_WIDTH = {"on": False}  # set by --wide for the running command

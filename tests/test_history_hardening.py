@@ -219,7 +219,7 @@ def test_all_failed_study_is_logged_noted_and_skipped_by_readers(tmp_path, fille
     r = cli("kb", "check", "--kb", filled.path, "--json")
     assert r.exit_code == 0, r.output
     notes = [f for f in json.loads(r.output)["findings"] if f["status"] == "note"]
-    assert any("1 studies whose every trial failed" in f["detail"] for f in notes), notes
+    assert any("1 study whose every trial failed" in f["detail"] for f in notes), notes
     info = json.loads(cli("kb", "info", "--kb", filled.path, "--json").output)
     assert info["studies"] == 4 and info["studies_all_failed"] == 1
     # the maintenance tools keep it: an export carries all four studies

@@ -303,7 +303,8 @@ def check(kb: KnowledgeBase, repair: bool = False,
     failed = failed_study_ids(visible["studies"], visible["trials"])
     if failed:
         report.findings.append(Finding(
-            "studies with a successful trial", NOTE, f"{len(failed)} studies whose every "
+            "studies with a successful trial", NOTE,
+            f"{len(failed)} {'study' if len(failed) == 1 else 'studies'} whose every "
             f"trial failed (e.g. {', '.join(failed[:EXAMPLES])}): kept, but suggest, "
             "backtest and similar leave them out"))
     report.counts = {"files": sum(len(visible_files(root / t)) for t in SCHEMAS),
