@@ -4,6 +4,7 @@ Usage::
 
     nice -n 10 python benchmarks/history_load.py [--per-writer 40] [--datasets 10000]
                                                   [--trials 1000000] [--queries 20]
+                                                  [--strategies auto,portfolio]
                                                   [--only writers|suggest]
 
 1. Writers. A fresh history on local disk; 1, 4 and 8 writer processes (forked after
@@ -14,13 +15,15 @@ Usage::
    real schemas): ``--datasets`` datasets with random meta-feature values over the whole
    catalogue, one study each spread over the six families and both tasks, and
    ``--trials`` trials in total with configurations sampled from each family's space.
-   Then times ``suggest`` (``--queries`` different query fingerprints) and prints p50
-   and p99, cold (no prediction cache: every surrogate fitted) and warm (the same query
-   again: predictions read from ``<history>/.cache``), next to the baseline read path
-   (every row of every table, no Parquet filters), with the ratios. Targets: p99
-   <= 0.2 s warm, <= 1 s cold.
+   Then times the API ``suggest`` with the fingerprint given (``--queries`` different
+   query fingerprints) for each of ``--strategies`` (by default the default strategy,
+   ``auto``, and the previous default, ``portfolio``) and prints p50 and p99, cold (the
+   history's ``.cache`` removed: every surrogate fitted, ``auto``'s choice made again)
+   and warm (the same query again; ``auto``'s in-process memory is emptied, so only what
+   is on disk helps), each beside its target (p99 <= 0.2 s warm, <= 1 s cold) with the
+   ratio p99 / target, and beside the baseline read path (every row of every table).
 3. One big study. A history holding one study of ``--big-study`` trials; ``suggest``
-   cold and warm (target <= 2 s), next to reading its tables.
+   cold and warm for each strategy, beside the target (<= 2 s) and the ratio.
 """
 
 from __future__ import annotations
