@@ -12,7 +12,8 @@ Usage::
    the time per group.
 3. Writes a BIG_ROWS file and measures the peak resident memory (``ru_maxrss``) of a fresh
    subprocess that fingerprints it (target < 1.5 GB), next to a subprocess that only
-   imports warmstart.
+   imports warmstart and one running the pandas baseline of part 2 on the same file
+   (its address space capped by ``--baseline-cap-gb``).
 
 Files are written in row groups by ``ParquetWriter``, so generating them needs little memory.
 """
@@ -156,10 +157,25 @@ def memory(tmp: str, args: argparse.Namespace) -> None:
     idle = peak_rss_mb("import warmstart")
     t = time.perf_counter()
     peak = peak_rss_mb(f"import warmstart\nwarmstart.fingerprint({big!r}, target='target')")
+    took = time.perf_counter() - t
+    # the pandas baseline of part 2 on the same file; its address space is capped so a
+    # table too big for this machine fails in the child instead of exhausting memory
+    cap = int(args.baseline_cap_gb * 2**30)
+    try:
+        base = peak_rss_mb(f"import resource\nresource.setrlimit(resource.RLIMIT_AS, "
+                           f"({cap}, {cap}))\nimport pandas as pd\n"
+                           f"df = pd.read_parquet({big!r})\nnum = df.select_dtypes('number')\n"
+                           "df.describe(include='all'); num.skew(); num.kurt(); "
+                           "df.isna().mean()")
+        base_txt = f"{base[0]:.0f} MB (ru_maxrss {base[1]:.0f} MB)"
+    except subprocess.CalledProcessError:
+        base, base_txt = None, f"failed within {args.baseline_cap_gb:g} GB of address space"
     print(f"peak memory, import only: {idle[0]:.0f} MB (ru_maxrss {idle[1]:.0f} MB)")
     print(f"peak memory, fingerprint of {args.big_rows:,} rows: {peak[0]:.0f} MB "
-          f"(ru_maxrss {peak[1]:.0f} MB; target < 1536 MB), "
-          f"{time.perf_counter() - t:.1f} s")
+          f"(ru_maxrss {peak[1]:.0f} MB; target < 1536 MB, and no more than before: "
+          f"432-563 MB), {took:.1f} s")
+    print(f"peak memory, pandas baseline on the same file: {base_txt}"
+          + (f"; ratio fingerprint / baseline {peak[0] / base[0]:.2f}" if base else ""))
 
 
 def main() -> None:
@@ -168,6 +184,8 @@ def main() -> None:
     ap.add_argument("--big-rows", type=int, default=10_000_000)
     ap.add_argument("--repeat", type=int, default=2,
                     help="Time each side this many times, alternating; keep the fastest.")
+    ap.add_argument("--baseline-cap-gb", type=float, default=14.0,
+                    help="Address-space cap of the pandas baseline's process (part 3).")
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         if args.rows > 0:

@@ -4,6 +4,7 @@ Usage::
 
     nice -n 10 python benchmarks/history_load.py [--per-writer 40] [--datasets 10000]
                                                   [--trials 1000000] [--queries 20]
+                                                  [--strategies auto,portfolio]
                                                   [--only writers|suggest]
 
 1. Writers. A fresh history on local disk; 1, 4 and 8 writer processes (forked after
@@ -14,13 +15,15 @@ Usage::
    real schemas): ``--datasets`` datasets with random meta-feature values over the whole
    catalogue, one study each spread over the six families and both tasks, and
    ``--trials`` trials in total with configurations sampled from each family's space.
-   Then times ``suggest`` (``--queries`` different query fingerprints) and prints p50
-   and p99, cold (no prediction cache: every surrogate fitted) and warm (the same query
-   again: predictions read from ``<history>/.cache``), next to the baseline read path
-   (every row of every table, no Parquet filters), with the ratios. Targets: p99
-   <= 0.2 s warm, <= 1 s cold.
+   Then times the API ``suggest`` with the fingerprint given (``--queries`` different
+   query fingerprints) for each of ``--strategies`` (by default the default strategy,
+   ``auto``, and the previous default, ``portfolio``) and prints p50 and p99, cold (the
+   history's ``.cache`` removed: every surrogate fitted, ``auto``'s choice made again)
+   and warm (the same query again; ``auto``'s in-process memory is emptied, so only what
+   is on disk helps), each beside its target (p99 <= 0.2 s warm, <= 1 s cold) with the
+   ratio p99 / target, and beside the baseline read path (every row of every table).
 3. One big study. A history holding one study of ``--big-study`` trials; ``suggest``
-   cold and warm (target <= 2 s), next to reading its tables.
+   cold and warm for each strategy, beside the target (<= 2 s) and the ratio.
 """
 
 from __future__ import annotations
@@ -45,6 +48,7 @@ from warmstart.maintenance import family_order
 from warmstart.prediction_cache import CACHE_DIR
 from warmstart.spaces import config_key
 from warmstart.storage import ROW_GROUP_ROWS, batch_name, write_atomic
+from warmstart.strategies import DEFAULT_STRATEGY, auto
 
 TASKS = ("classification", "regression")
 METRIC = {"classification": "balanced_accuracy", "regression": "r2"}
@@ -140,27 +144,42 @@ def generate(root: Path, n_datasets: int, n_trials: int, seed: int = 0,
     return kb
 
 
-def timed_suggest(kb: KnowledgeBase, query: Fingerprint, family: str) -> float:
+def timed_suggest(kb: KnowledgeBase, query: Fingerprint, family: str,
+                  strategy: str | None = None, cold: bool = False) -> float:
+    """Wall seconds of one API ``suggest`` (fingerprint given). ``cold`` removes the
+    history's ``.cache`` first (predictions and ``auto``'s choices); either way the
+    in-process memory of ``auto``'s choices is emptied, so "warm" means what a new
+    process finds on disk."""
+    if cold:
+        shutil.rmtree(kb.path / CACHE_DIR, ignore_errors=True)
+    auto._MEMORY.clear()
     t = time.perf_counter()
-    out = kb.suggest(fingerprint_of=query, family=family, k=10)
+    out = kb.suggest(fingerprint_of=query, family=family, k=10, strategy=strategy)
     elapsed = time.perf_counter() - t
     assert len(out) == 10
     return elapsed
 
 
-def run_big_study(n_trials: int, rng: np.random.Generator, root: Path) -> None:
+def strategy_label(name: str) -> str:
+    return f"{name} (default)" if name == DEFAULT_STRATEGY else f"{name} (previous default)"
+
+
+def run_big_study(n_trials: int, rng: np.random.Generator, root: Path,
+                  strategies: list[str]) -> None:
     """Part 3: suggest from a history whose only study holds ``n_trials`` trials."""
     kb = generate(root, 1, n_trials, seed=2, name="big")
     family = sorted(FAMILIES)[0]  # the family generate gives dataset 0 (classification)
     query = random_fingerprint(rng, TASKS[0])
-    cold = timed_suggest(kb, query, family)
-    warm = timed_suggest(kb, query, family)
     t = time.perf_counter()
     kb.tables()
     read = time.perf_counter() - t
-    print(f"\n3. one study of {n_trials:,} trials ({family})")
-    print(f"   suggest cold {cold:6.3f} s   warm {warm:6.3f} s   (target <= 2 s)")
-    print(f"   baseline: read all rows {read:6.3f} s   (cold / baseline {cold / read:.2f})")
+    print(f"\n3. one study of {n_trials:,} trials ({family}); target <= 2 s")
+    for name in strategies:
+        cold = timed_suggest(kb, query, family, name, cold=True)
+        warm = timed_suggest(kb, query, family, name)
+        print(f"   {strategy_label(name):<30} cold {cold:6.3f} s (/ target {cold / 2:5.2f})"
+              f"   warm {warm:6.3f} s (/ target {warm / 2:5.2f})")
+    print(f"   baseline: read all rows {read:6.3f} s")
 
 
 def percentiles(times: list[float]) -> tuple[float, float]:
@@ -174,6 +193,10 @@ def main() -> None:
     ap.add_argument("--trials", type=int, default=1_000_000)
     ap.add_argument("--queries", type=int, default=20)
     ap.add_argument("--big-study", type=int, default=100_000)
+    ap.add_argument("--strategies", type=lambda v: v.split(","),
+                    default=[DEFAULT_STRATEGY, "portfolio"],
+                    help="comma-separated strategies to time (default: the default "
+                         "strategy and the previous default, portfolio)")
     ap.add_argument("--only", choices=("writers", "suggest"),
                     help="run one part (both by default)")
     args = ap.parse_args()
@@ -185,7 +208,7 @@ def main() -> None:
             run_writers(args.per_writer, fp, root)
         if args.only != "writers":
             run_suggest(args, rng, root)
-            run_big_study(args.big_study, rng, root)
+            run_big_study(args.big_study, rng, root, args.strategies)
 
 
 def run_writers(per_writer: int, fp: Fingerprint, root: Path) -> None:
@@ -202,27 +225,34 @@ def run_suggest(args: argparse.Namespace, rng: np.random.Generator, root: Path) 
     kb = generate(root, args.datasets, args.trials)
     size = sum(f.stat().st_size for f in kb.path.rglob("*.parquet"))
     print(f"\n2. suggest on {args.datasets} datasets / {args.trials} trials "
-          f"(generated in {time.perf_counter() - t0:.1f} s, {size / 2**20:.1f} MiB)")
-    cold, warm, full = [], [], []
+          f"(generated in {time.perf_counter() - t0:.1f} s, {size / 2**20:.1f} MiB), "
+          f"API, fingerprint given, {args.queries} queries")
+    queries = []
     for q in range(args.queries):
         task = TASKS[q % 2]
-        query = random_fingerprint(rng, task)
-        family = sorted(FAMILIES)[q % len(FAMILIES)]
-        shutil.rmtree(kb.path / CACHE_DIR, ignore_errors=True)
-        cold.append(timed_suggest(kb, query, family))
-        warm.append(timed_suggest(kb, query, family))
+        queries.append((random_fingerprint(rng, task), sorted(FAMILIES)[q % len(FAMILIES)]))
+    full = []
+    for _ in range(3):
         t = time.perf_counter()
         kb.tables()  # baseline read path: every row of every table
         full.append(time.perf_counter() - t)
     b50, b99 = percentiles(full)
-    for what, times, target in (("cold cache", cold, 1.0), ("warm cache", warm, 0.2)):
-        p50, p99 = percentiles(times)
-        print(f"   suggest, {what:<15} p50 {p50:6.3f} s   p99 {p99:6.3f} s   "
-              f"(p99 target <= {target} s; p50 / baseline {p50 / b50:.2f})")
+    print(f"   {'':<30}{'':<6}{'p50 s':>8}{'p99 s':>8}{'target':>8}{'p99/target':>11}"
+          f"{'p50/read':>9}")
+    for name in args.strategies:
+        cold, warm = [], []
+        for query, family in queries:
+            cold.append(timed_suggest(kb, query, family, name, cold=True))
+            warm.append(timed_suggest(kb, query, family, name))
+        for what, times, target in (("cold", cold, 1.0), ("warm", warm, 0.2)):
+            p50, p99 = percentiles(times)
+            print(f"   {strategy_label(name):<30}{what:<6}{p50:8.3f}{p99:8.3f}{target:8.1f}"
+                  f"{p99 / target:11.2f}{p50 / b50:9.2f}")
     print(f"   baseline: read all rows  p50 {b50:6.3f} s   p99 {b99:6.3f} s")
     t = time.perf_counter()
     kb.tables(family="random_forest", task="classification")
     print(f"   filtered read of one family/task: {time.perf_counter() - t:.3f} s")
+
 
 if __name__ == "__main__":
     sys.exit(main())

@@ -1,7 +1,10 @@
 """The on-disk cache of surrogate predictions: cold, warm, after compaction and after a
 study is deleted, ``suggest`` gives the same suggestions as with no cache at all.
 
-Runs on a copy of the shipped demo history, with the default (surrogate-using) strategy.
+Runs on a copy of the shipped demo history, with the default strategy (``auto``, whose
+choice is also cached) and with the previous default (``portfolio``, which reads the
+prediction cache directly). ``auto``'s in-process memory of its choices is emptied before
+every call, so "cold" means nothing cached anywhere.
 """
 
 from __future__ import annotations
@@ -17,6 +20,7 @@ from sklearn.datasets import load_wine
 
 from warmstart import KnowledgeBase
 from warmstart.prediction_cache import CACHE_DIR, PredictionStore, fit_identity
+from warmstart.strategies import auto
 from warmstart.surrogate import MAX_FIT_TRIALS, fit_rows
 
 DEMO = Path(__file__).resolve().parents[1] / "knowledge_base"
@@ -28,11 +32,21 @@ def _cache_digest(kb_path: Path) -> dict[str, str]:
             for p in sorted(root.rglob("*.json"))}
 
 
-def _suggest(kb_path: Path, query: pd.DataFrame) -> list[dict]:
-    # a new KnowledgeBase each time: nothing is shared in memory between the calls
+STRATEGY = "auto"
+
+
+def _suggest(kb_path: Path, query: pd.DataFrame, strategy: str | None = None) -> list[dict]:
+    # a new KnowledgeBase each time and auto's memory emptied: nothing is shared in
+    # memory between the calls
+    auto._MEMORY.clear()
     found = KnowledgeBase(kb_path).suggest(query, target="target", family="random_forest",
-                                           k=8, seed=3)
+                                           k=8, seed=3, strategy=strategy or STRATEGY)
     return [s.to_dict() for s in found]
+
+
+@pytest.fixture(params=["auto", "portfolio"])
+def strategy(request) -> str:
+    return request.param
 
 
 @pytest.fixture(scope="module")
@@ -47,27 +61,28 @@ def history(tmp_path: Path) -> Path:
     return path
 
 
-def test_cold_warm_and_uncached_suggestions_are_identical(history, query):
-    cold = _suggest(history, query)
+def test_cold_warm_and_uncached_suggestions_are_identical(history, query, strategy):
+    cold = _suggest(history, query, strategy)
     assert any(s["predicted"] for s in cold)  # the surrogates were used
     written = _cache_digest(history)
-    assert written  # predictions were stored
-    warm = _suggest(history, query)
+    assert any(name.startswith("predictions/") for name in written)  # predictions stored
+    assert (strategy == "auto") == any(name.startswith("auto-") for name in written)
+    warm = _suggest(history, query, strategy)
     assert warm == cold
     assert _cache_digest(history) == written  # every prediction came from disk
     shutil.rmtree(history / CACHE_DIR)
-    assert _suggest(history, query) == cold  # a cold cache again: the same answer
+    assert _suggest(history, query, strategy) == cold  # a cold cache again: the same answer
 
 
-def test_compaction_keeps_the_cache_valid_and_the_answer_the_same(history, query):
-    before = _suggest(history, query)
+def test_compaction_keeps_the_cache_valid_and_the_answer_the_same(history, query, strategy):
+    before = _suggest(history, query, strategy)
     cached = _cache_digest(history)
     out = KnowledgeBase(history).compact()
     assert out["before"]["content_hash"] == out["after"]["content_hash"]
-    assert _suggest(history, query) == before
+    assert _suggest(history, query, strategy) == before
     assert _cache_digest(history) == cached  # same rows, same names: nothing refitted
     shutil.rmtree(history / CACHE_DIR)
-    assert _suggest(history, query) == before
+    assert _suggest(history, query, strategy) == before
 
 
 def test_after_a_study_is_deleted_warm_and_cold_caches_agree(history, query, tmp_path):

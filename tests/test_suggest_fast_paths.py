@@ -3,6 +3,7 @@ parsed only when a strategy reads them must not change any result."""
 
 from __future__ import annotations
 
+import dataclasses
 import json
 
 import numpy as np
@@ -14,8 +15,14 @@ from sklearn.preprocessing import minmax_scale
 from warmstart.families import get_family
 from warmstart.fingerprint import Fingerprint
 from warmstart.similarity import Neighbour
-from warmstart.spaces import config_key
-from warmstart.strategies import STRATEGIES, SuggestContext, TrialIndex, prepare_trials
+from warmstart.spaces import config_key, user_space
+from warmstart.strategies import (
+    STRATEGIES,
+    SuggestContext,
+    TrialIndex,
+    canonical_key,
+    prepare_trials,
+)
 from warmstart.surrogate import fit_surrogate
 
 FAMILY = get_family("knn")
@@ -117,3 +124,33 @@ def test_surrogate_cache_fits_once_and_a_rescored_view_keeps_parsed_rows():
     assert view.rows_at(view.ranked_positions(["s0"]))["trial_index"].tolist() == \
         ctx.trials.rows_at(pos).sort_values(["normalised", "trial_index"], kind="stable")[
             "trial_index"].tolist()
+
+
+@pytest.mark.parametrize("exact", [False, True])
+@pytest.mark.parametrize("name", ["portfolio", "blend-portfolio", "global-portfolio",
+                                  "transfer", "nearest-best"])
+def test_without_explanations_the_same_configurations_come_in_the_same_order(name, exact):
+    # auto's inner evaluations read only the configurations (explain=False)
+    studies, raw = _history(seed=7)
+    ctx = _context(prepare_trials(raw, studies, parse_configs=False), studies, exact)
+    full = STRATEGIES[name].propose(ctx, 8)
+    bare = STRATEGIES[name].propose(dataclasses.replace(ctx, explain=False), 8)
+    assert len(full) > 0
+    assert [s.config for s in bare] == [s.config for s in full]
+
+
+def test_cached_clipped_configurations_equal_clipping_each_row():
+    studies, raw = _history(seed=9)
+    trials = prepare_trials(raw, studies, parse_configs=False)
+    index = TrialIndex(trials, SPACE)
+    narrow = user_space([{"name": "n_neighbors", "low": 3, "high": 9},
+                         {"name": "weights", "choices": ["distance"]}], FAMILY,
+                        "classification")
+    pos = np.arange(len(trials))[::-1]
+    for _ in range(2):  # the second pass is served from the cache
+        got = index.clipped_at(narrow, "narrow", pos)
+        # reference: SearchSpace.clip and canonical_key applied to each parsed row
+        want = [narrow.clip(json.loads(trials["config"].iloc[i])) for i in pos]
+        assert [c for c, _ in got] == want and None in want and any(want)
+        assert [k for _, k in got] == [None if c is None else canonical_key(SPACE, c)
+                                       for c in want]

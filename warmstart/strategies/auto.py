@@ -199,7 +199,7 @@ def inner_regret(ctx: SuggestContext, strategy: Strategy, dataset_id: str) -> fl
               if d in ctx.fingerprints}
     names = {n.dataset_id: n.name for n in ctx.neighbours}
     query = ctx.fingerprints[dataset_id]
-    view = dataclasses.replace(ctx, query=query, studies=studies,
+    view = dataclasses.replace(ctx, query=query, studies=studies, explain=False,
                                neighbours=nearest(query, others, names, k=None))
     truth = _truth(ctx, dataset_id)
     proposed = strategy.propose(view, CHOICE_K)[:CHOICE_K]

@@ -71,6 +71,10 @@ class SuggestContext:
     cache_dir : str, optional
         Where strategies may keep JSON caches of the history (``<history>/.cache``);
         None keeps them in memory only.
+    explain : bool
+        False when only the proposed configurations are read (``auto``'s inner
+        evaluations): strategies may then leave the explanation fields (source trial,
+        ``support``, ``best_on``) empty. The configurations and their order are the same.
     """
 
     query: Fingerprint
@@ -86,6 +90,7 @@ class SuggestContext:
     surrogates: SurrogateCache = field(default_factory=SurrogateCache)
     fingerprints: Mapping[str, Fingerprint] = field(default_factory=dict)
     cache_dir: str | None = None
+    explain: bool = True
 
     @cached_property
     def full_space(self) -> SearchSpace:
@@ -134,6 +139,11 @@ class SuggestContext:
     @cached_property
     def _space_id(self) -> str:
         return json.dumps(self.full_space.to_dict(), sort_keys=True, default=str)
+
+    @cached_property
+    def space_id(self) -> str:
+        """:attr:`space` as canonical JSON text (names it in caches)."""
+        return json.dumps(self.space.to_dict(), sort_keys=True, default=str)
 
     def _identity(self, study_id: str) -> tuple[int, str, str]:
         """What a study's predictions depend on beyond its id (see prediction_cache)."""

@@ -123,14 +123,21 @@ def greedy_order(P: np.ndarray, w: np.ndarray, k: int, first: int | None = None)
     return greedy_steps(P, w, k, first)[0]
 
 
-def candidate_configs(ctx: SuggestContext, seen: list[dict]) -> tuple[list[str], list[dict]]:
-    """Candidates in canonical-key order: ``ctx.candidates`` when given, else ``seen``,
-    brought into ``ctx.space`` and de-duplicated; (keys, configurations)."""
+def candidate_configs(ctx: SuggestContext, positions: np.ndarray
+                      ) -> tuple[list[str], list[dict]]:
+    """Candidates in canonical-key order: ``ctx.candidates`` when given, else the
+    configurations of the trials at ``positions`` (rows of ``ctx.trials``), brought
+    into ``ctx.space`` and de-duplicated; (keys, configurations)."""
     cands: dict[str, dict] = {}
-    for c in ctx.candidates if ctx.candidates is not None else seen:
-        clipped = ctx.space.clip(c)
-        if clipped is not None:
-            cands.setdefault(ctx.key(clipped), clipped)
+    if ctx.candidates is not None:
+        for c in ctx.candidates:
+            clipped = ctx.space.clip(c)
+            if clipped is not None:
+                cands.setdefault(ctx.key(clipped), clipped)
+    else:  # the trials' clipped forms are cached in ctx.trials
+        for clipped, key in ctx.trials.clipped_at(ctx.space, ctx.space_id, positions):
+            if clipped is not None:
+                cands.setdefault(key, clipped)
     keys = sorted(cands)
     return keys, [cands[key] for key in keys]
 
@@ -210,7 +217,7 @@ class GreedyPortfolio:
         pos = np.unique(np.concatenate([ctx.trials.study_positions(sid)
                                         for sid in set(unit_ids)]))
         src = ctx.trials.rows_at(pos).assign(key=ctx.trials.keys_at(pos))
-        keys, configs = candidate_configs(ctx, list(src["config"]))
+        keys, configs = candidate_configs(ctx, pos)
         if not keys:
             return []
         row_of = {key: i for i, key in enumerate(keys)}
@@ -228,6 +235,9 @@ class GreedyPortfolio:
                                             [configs[i] for i in missing],
                                             [keys[i] for i in missing])
         order, gains, parts = greedy_steps(P, w, k, exact_first(ctx, row_of))
+        if not ctx.explain:
+            return [Suggestion(rank=r, config=configs[i], strategy=self.name)
+                    for r, i in enumerate(order, 1)]
         return [self._suggestion(ctx, src, units, w, P, seen, configs[i], keys[i], i, r,
                                  gains[r - 1], parts[r - 1])
                 for r, i in enumerate(order, 1)]

@@ -102,7 +102,7 @@ class TransferForest:
             return []
         model, scaler, pos = fitted
         src = ctx.trials.rows_at(pos).assign(key=ctx.trials.keys_at(pos))
-        keys, configs = candidate_configs(ctx, list(src["config"]))
+        keys, configs = candidate_configs(ctx, pos)
         if not keys:
             return []
         q = (np.zeros(0) if scaler is None else
@@ -112,6 +112,9 @@ class TransferForest:
         w = np.full(P.shape[1], 1.0 / P.shape[1])
         first = exact_first(ctx, {key: i for i, key in enumerate(keys)})
         order, gains, _ = greedy_steps(P, w, k, first)
+        if not ctx.explain:
+            return [Suggestion(rank=r, config=configs[i], strategy=self.name)
+                    for r, i in enumerate(order, 1)]
         out = []
         for rank, (i, gain) in enumerate(zip(order, gains), 1):
             best_on = observed_support(ctx, src, keys[i])

@@ -52,6 +52,7 @@ class TrialIndex:
         self._keys = (frame["key"].to_numpy(dtype=object) if "key" in frame.columns
                       else np.full(n, None, dtype=object))
         self._ranked: dict[tuple[str, ...], np.ndarray] = {}
+        self._clipped: dict[str, dict[Any, tuple[dict[str, Any] | None, str | None]]] = {}
 
     def __len__(self) -> int:
         return len(self._frame)
@@ -84,6 +85,25 @@ class TrialIndex:
         for i, c in zip(todo, self.configs_at(todo)):
             self._keys[i] = canonical_key(self.space, c)
         return self._keys[positions]
+
+    def clipped_at(self, space: SearchSpace, space_id: str, positions: Sequence[int]
+                   ) -> list[tuple[dict[str, Any] | None, str | None]]:
+        """Configurations at ``positions`` brought into ``space`` (``space.clip``) with
+        the canonical key of each result, in that order; ``(None, None)`` where the
+        configuration cannot be brought into it.
+
+        Cached per ``space_id`` (a string naming ``space``) and per row; rows whose JSON
+        text is identical share one entry, since clipping depends on the configuration
+        alone. Strategies clip the same rows many times when ``auto`` holds datasets out.
+        """
+        memo = self._clipped.setdefault(space_id, {})
+        text = self._text
+        ids = list(positions) if text is None else [text[i] for i in positions]
+        todo = {m: i for m, i in zip(ids, positions) if m not in memo}
+        for m, c in zip(todo, self.configs_at(todo.values())):
+            clipped = space.clip(c)
+            memo[m] = (clipped, None if clipped is None else canonical_key(self.space, clipped))
+        return [memo[m] for m in ids]
 
     def rows_at(self, positions: Sequence[int]) -> pd.DataFrame:
         """The trials at ``positions`` (in that order) with parsed configurations."""
@@ -128,7 +148,7 @@ class TrialIndex:
         view.space = self.space
         view._frame = self._frame.assign(normalised=np.asarray(normalised, dtype=float))
         view._text, view._configs, view._keys = self._text, self._configs, self._keys
-        view._ranked = {}
+        view._ranked, view._clipped = {}, self._clipped
         if "_by_study" in self.__dict__:
             view.__dict__["_by_study"] = self._by_study
         return view
