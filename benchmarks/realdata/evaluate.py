@@ -57,6 +57,7 @@ GRID = {"neighbours": (5, 10, 20), "temperature": (0.25, 1.0, math.inf)}
 TASKS = ("classification", "regression")
 TUNED = "tuned-portfolio"
 GLOBAL, RANDOM = "global-portfolio", "random"
+AUTO = "auto"
 
 
 def _id(name: str) -> str:
@@ -259,7 +260,8 @@ def tuned_strategy(row):
 
 def evaluation_strategies(tuned, names: list[str] | None = None) -> list:
     """The default first, then the other registered strategies that use the history, the
-    tuned setting, and last the baselines (the dataset-agnostic list, random, defaults)."""
+    tuned setting (if any), and last the baselines (the dataset-agnostic list, random,
+    defaults)."""
     names = names or list(ws.STRATEGIES)
     strats = [ws.get_strategy(n) for n in names]
     baseline = {GLOBAL, RANDOM, "defaults"}
@@ -267,8 +269,81 @@ def evaluation_strategies(tuned, names: list[str] | None = None) -> list:
     history = [s for s in strats if s.name not in baseline and s not in default]
     rest = [s for s in strats if s.name in baseline]
     rest.sort(key=lambda s: [GLOBAL, RANDOM, "defaults"].index(s.name))
-    tuned_l = [tuned] if tuned.name not in {s.name for s in strats} else []
+    tuned_l = [tuned] if tuned and tuned.name not in {s.name for s in strats} else []
     return default + history + tuned_l + rest
+
+
+class _ChoiceRecorder:
+    """``auto`` as shipped, recording the choice it makes for each context it sees."""
+
+    uses_history = True
+    stochastic = False
+
+    def __init__(self, auto):
+        self.auto, self.name, self.choices = auto, auto.name, []
+
+    def propose(self, ctx, k):
+        out = self.auto.propose(ctx, k)
+        if out:
+            self.choices.append((ctx.query.task, out[0].choice))
+        return out
+
+
+def auto_choices(tables, fps, groups, tune_ids, eval_ids, family) -> dict[str, dict]:
+    """Task -> the choice ``auto`` (as shipped) makes on the tuning half's history.
+
+    For each task one evaluation dataset is held out against a history of the tuning
+    half alone (its own group is not in it), so the choice never sees an evaluation
+    dataset; it is cached in cache/ by a digest of the inputs. See the README (the
+    exact protocol, one choice per held-out group, costs 2-5 minutes per group here).
+    """
+    st = tables["studies"][tables["studies"]["family"] == family]
+    digest = _digest(_restrict(tables, tune_ids), fps, groups, family, [AUTO],
+                     ("auto-choice",))
+    path = build.CACHE / f"auto-choice-{family}-{digest}.json"
+    if path.is_file():
+        return json.loads(path.read_text(encoding="utf-8"))
+    out: dict[str, dict] = {}
+    for task, g in st[st["dataset_id"].isin(eval_ids)].groupby("task"):
+        for h in sorted(g["dataset_id"]):  # the first that can rank anything
+            rec = _ChoiceRecorder(ws.get_strategy(AUTO))
+            run(_restrict(tables, tune_ids | {h}), fps, groups, family, [rec], {h}, (TUNE_K,))
+            if rec.choices:
+                out[task] = rec.choices[0][1]
+                break
+    build.CACHE.mkdir(exist_ok=True)
+    path.write_text(json.dumps(_clean(out)), encoding="utf-8")
+    return out
+
+
+def _settings(s) -> tuple:
+    """What makes two strategy instances propose the same lists (all but the name)."""
+    return (type(s).__name__, tuple(sorted((k, repr(v)) for k, v in vars(s).items()
+                                          if k not in ("name", "description"))))
+
+
+def auto_candidates(strategies: list) -> tuple[list, dict[str, str]]:
+    """``strategies`` plus auto's candidates and fallback not already among them (same
+    settings), and the map from each candidate's name to the evaluated one."""
+    auto = ws.get_strategy(AUTO)
+    have = {_settings(s): s.name for s in strategies}
+    extra, names = [], {}
+    for c in (*auto.candidates, auto.fallback):
+        if _settings(c) not in have:
+            have[_settings(c)] = c.name
+            extra.append(c)
+        names[c.name] = have[_settings(c)]
+    return strategies + extra, names
+
+
+def with_auto(per: pd.DataFrame, choices: dict[str, dict], names: dict[str, str]
+              ) -> pd.DataFrame:
+    """``per`` plus rows named ``auto``: per task, the rows of the strategy auto chose."""
+    parts = [per]
+    for task, choice in choices.items():
+        rows = per[(per["task"] == task) & (per["strategy"] == names[choice["chosen"]])]
+        parts.append(rows.assign(strategy=AUTO))
+    return pd.concat(parts, ignore_index=True)
 
 
 def cell_summary(d: pd.DataFrame) -> list[dict]:
@@ -427,10 +502,18 @@ def plot_cells(per: pd.DataFrame, names: list[str], path: Path, title: str) -> N
     plt.close(fig)
 
 
-def evaluate_family(tables, fps, groups, family, strategies, ids, half, plot=True) -> dict:
-    """Backtest one family on one half; print its tables; the JSON record."""
+def evaluate_family(tables, fps, groups, family, strategies, ids, half, plot=True,
+                    auto=None) -> dict:
+    """Backtest one family on one half; print its tables; the JSON record.
+
+    ``auto``: None when ``strategies`` holds ``auto`` itself (run as shipped), else
+    ``(choices, names)`` of :func:`auto_choices` / :func:`auto_candidates`: the ``auto``
+    rows are then those of the strategy it chose, per task (see the README)."""
     per = cached_backtest(tables, fps, groups, family, strategies, ids, half)
     names = [s.name for s in strategies]
+    if auto is not None:
+        per = with_auto(per, *auto)
+        names = [AUTO] + names
     summary = cell_summary(per)
     print("\n" + table_text(summary, names, f"{family} - {half} half "
                                               f"(default = {default_strategy()})"))
@@ -462,6 +545,26 @@ def _coverage_report(tables, groups, families, tune_ids, eval_ids):
     return cov, tune_fams, tested
 
 
+def _evaluate_halves(tables, fps, groups, family, strategies, halves, tune_ids, eval_ids,
+                     cand_names, plot) -> dict:
+    """:func:`evaluate_family` on each half; with ``cand_names`` (auto's candidates, see
+    :func:`auto_candidates`) auto's choice on the tuning half gives its evaluation rows."""
+    rec: dict = {}
+    auto = None
+    if cand_names is not None:
+        choices = auto_choices(tables, fps, groups, tune_ids, eval_ids, family)
+        rec["auto_choice"] = choices
+        for task, c in choices.items():
+            print(f"  auto's choice for {family}/{task} on the tuning half: {c['chosen']} "
+                  f"({c['rule']}, {c['datasets']} datasets)")
+        auto = (choices, cand_names)
+    for half, ids in halves:
+        tabs = tables if half == "evaluation" else _restrict(tables, tune_ids)
+        rec[half] = evaluate_family(tabs, fps, groups, family, strategies, ids, half, plot,
+                                    auto if half == "evaluation" else None)
+    return rec
+
+
 def _parse(argv):
     ap = argparse.ArgumentParser(description="realdata benchmark: evaluate strategies")
     ap.add_argument("--skip-build", action="store_true",
@@ -475,6 +578,12 @@ def _parse(argv):
     ap.add_argument("--tuning-half", action="store_true",
                     help="also report every strategy on the tuning half")
     ap.add_argument("--no-plot", action="store_true")
+    ap.add_argument("--no-grid", action="store_true",
+                    help="skip the tuning grid (no tuned-portfolio row)")
+    ap.add_argument("--exact-auto", action="store_true",
+                    help="backtest auto as shipped, one choice per held-out group (slow); "
+                         "default: its choice on the tuning half, applied to the evaluation "
+                         "half")
     return ap.parse_args(argv)
 
 
@@ -495,25 +604,30 @@ def main(argv=None) -> int:
           f"{len(tune_ids)} datasets ({n_groups[0]} groups), evaluation half "
           f"{len(eval_ids)} ({n_groups[1]} groups)")
     cov, tune_fams, families = _coverage_report(tables, groups, families, tune_ids, eval_ids)
-    grid = tune(tables, fps, groups, tune_ids, tune_fams)
-    print("\nTuning half, mean regret@5 over (family, task) cells (grid, best first):")
-    print(grid.to_string(index=False, float_format=lambda v: f"{v:.3f}"))
-    tuned = tuned_strategy(grid.iloc[0])
+    grid, tuned = pd.DataFrame(), None
+    if not a.no_grid:
+        grid = tune(tables, fps, groups, tune_ids, tune_fams)
+        print("\nTuning half, mean regret@5 over (family, task) cells (grid, best first):")
+        print(grid.to_string(index=False, float_format=lambda v: f"{v:.3f}"))
+        tuned = tuned_strategy(grid.iloc[0])
     strategies = evaluation_strategies(tuned, a.strategies and a.strategies.split(","))
+    proxy = not a.exact_auto and AUTO in {s.name for s in strategies}
+    if proxy:
+        strategies, cand_names = auto_candidates([s for s in strategies if s.name != AUTO])
     out = {"datasets": len(groups), "groups": len(set(groups.values())),
            "tuning_half": {"datasets": len(tune_ids), "groups": n_groups[0]},
            "evaluation_half": {"datasets": len(eval_ids), "groups": n_groups[1]},
-           "default_strategy": default_strategy(), "tuned": grid.iloc[0].to_dict(),
+           "default_strategy": default_strategy(),
+           "tuned": None if grid.empty else grid.iloc[0].to_dict(),
            "grid": grid.to_dict(orient="records"),
-           "strategies": [s.name for s in strategies], "coverage": cov,
-           "tuned_on": tune_fams, "families": {}}
+           "auto_protocol": "exact" if not proxy else "choice on the tuning half",
+           "strategies": ([AUTO] if proxy else []) + [s.name for s in strategies],
+           "coverage": cov, "tuned_on": tune_fams, "families": {}}
     halves = [("evaluation", eval_ids)] + ([("tuning", tune_ids)] if a.tuning_half else [])
     for family in families:
-        out["families"][family] = {}
-        for half, ids in halves:
-            tabs = tables if half == "evaluation" else _restrict(tables, tune_ids)
-            out["families"][family][half] = evaluate_family(
-                tabs, fps, groups, family, strategies, ids, half, not a.no_plot)
+        out["families"][family] = _evaluate_halves(
+            tables, fps, groups, family, strategies, halves, tune_ids, eval_ids,
+            cand_names if proxy else None, not a.no_plot)
     rows = [r for f in families for r in out["families"][f]["evaluation"]["k5"]]
     md = markdown_k5(rows)
     print("\nEvaluation half, mean ± std of normalised regret at k = 5 (random also at 10, "
