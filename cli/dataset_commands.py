@@ -96,9 +96,9 @@ def _echo_catalogue(as_json: bool) -> None:
 @json_option
 @handle_errors
 def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, direction,
-            name, cluster, kb_path, as_json) -> None:
+            name, cluster, kb_path, server, as_json) -> None:
     """Log a finished study (its trials) into the team history."""
-    kb = open_history(kb_path)
+    kb = open_history(kb_path, server)
     fp = query_fingerprint(data, target, task, fingerprint_file, cluster)
     study = kb.log(
         target=target, family=family, trials=trials_file, metric=metric,
@@ -125,9 +125,10 @@ def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, d
 @kb_option
 @json_option
 @handle_errors
-def similar_cmd(data, target, task, fingerprint_file, k, cluster, kb_path, as_json) -> None:
+def similar_cmd(data, target, task, fingerprint_file, k, cluster, kb_path, server,
+                as_json) -> None:
     """Show the past datasets most similar to DATA, and why."""
-    kb = open_history(kb_path)
+    kb = open_history(kb_path, server)
     fp = query_fingerprint(data, target, task, fingerprint_file, cluster)
     found = kb.similar(target=target, k=k, task=task, fingerprint_of=fp)
     if not found:
@@ -172,9 +173,9 @@ def similar_cmd(data, target, task, fingerprint_file, k, cluster, kb_path, as_js
 @json_option
 @handle_errors
 def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strategy,
-                space_file, max_fit_seconds, seed, cluster, kb_path, as_json) -> None:
+                space_file, max_fit_seconds, seed, cluster, kb_path, server, as_json) -> None:
     """Suggest starting configurations for FAMILY on DATA."""
-    kb = open_history(kb_path)
+    kb = open_history(kb_path, server)
     fp = query_fingerprint(data, target, task, fingerprint_file, cluster)
     try:
         found = kb.suggest(

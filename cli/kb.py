@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from cli.common import handle_errors, json_option, kb_option, open_history
+from cli.common import directory_option, handle_errors, json_option, kb_option, open_history
 from cli.output import emit_json, table
 from warmstart.history import KnowledgeBase, resolve_path
 
@@ -35,9 +35,9 @@ def kb_init_cmd(path, as_json) -> None:
 @kb_option
 @json_option
 @handle_errors
-def kb_info_cmd(kb_path, as_json) -> None:
+def kb_info_cmd(kb_path, server, as_json) -> None:
     """Counts per family and metric, fingerprints per catalogue version, size on disk."""
-    info = open_history(kb_path).info()
+    info = open_history(kb_path, server).info()
     if as_json:
         emit_json(info)
         return
@@ -63,9 +63,9 @@ def kb_info_cmd(kb_path, as_json) -> None:
                    "writer and are left alone [default: 900].")
 @json_option
 @handle_errors
-def kb_check_cmd(kb_path, repair, grace_seconds, as_json) -> None:
+def kb_check_cmd(kb_path, server, repair, grace_seconds, as_json) -> None:
     """Verify the history's integrity (exit code 1 when a problem remains)."""
-    report = open_history(kb_path).check(repair=repair, grace_seconds=grace_seconds)
+    report = open_history(kb_path, server).check(repair=repair, grace_seconds=grace_seconds)
     if as_json:
         emit_json(report.to_dict())
     else:
@@ -87,9 +87,9 @@ def kb_check_cmd(kb_path, repair, grace_seconds, as_json) -> None:
 @kb_option
 @json_option
 @handle_errors
-def kb_compact_cmd(kb_path, as_json) -> None:
+def kb_compact_cmd(kb_path, server, as_json) -> None:
     """Merge each table's many small files into one (content unchanged)."""
-    out = open_history(kb_path).compact()
+    out = open_history(kb_path, server).compact()
     if as_json:
         emit_json(out)
         return
@@ -108,9 +108,9 @@ def kb_compact_cmd(kb_path, as_json) -> None:
 @kb_option
 @json_option
 @handle_errors
-def kb_export_cmd(file, kb_path, as_json) -> None:
+def kb_export_cmd(file, kb_path, server, as_json) -> None:
     """Write the whole history to one portable FILE (a ZIP of three Parquet tables)."""
-    out = open_history(kb_path).export(file)
+    out = open_history(kb_path, server).export(file)
     if as_json:
         emit_json(out)
         return
@@ -119,13 +119,13 @@ def kb_export_cmd(file, kb_path, as_json) -> None:
 
 
 @kb_group.command("import")
-@click.argument("file", type=click.Path(path_type=Path))
+@click.argument("file", type=click.Path(path_type=str))  # str: a URI is named as given
 @kb_option
 @json_option
 @handle_errors
-def kb_import_cmd(file, kb_path, as_json) -> None:
+def kb_import_cmd(file, kb_path, server, as_json) -> None:
     """Merge another team's exported FILE; studies already present are skipped."""
-    out = open_history(kb_path).import_(file)
+    out = open_history(kb_path, server).import_(file)
     if as_json:
         emit_json(out)
         return
@@ -135,7 +135,7 @@ def kb_import_cmd(file, kb_path, as_json) -> None:
 
 
 @kb_group.command("migrate")
-@kb_option
+@directory_option
 @json_option
 @handle_errors
 def kb_migrate_cmd(kb_path, as_json) -> None:

@@ -47,6 +47,7 @@ import pyarrow.parquet as pq
 
 from warmstart.errors import BadInputError
 from warmstart.families import FAMILIES
+from warmstart.filesystems import history_location
 from warmstart.fingerprint import KNOWN_CATALOGUE_VERSIONS
 from warmstart.layout import (
     FORMAT_FILE,
@@ -534,6 +535,11 @@ def export(kb: KnowledgeBase, file: str | os.PathLike) -> dict[str, Any]:
 
 def read_export(file: str | os.PathLike) -> tuple[dict[str, Any], dict[str, pa.Table]]:
     """Open an export file and validate it; returns its marker and its three tables."""
+    if isinstance(file, str) and "://" in file:  # a Path would fold https:// into https:/
+        if not file.lower().startswith("file://"):
+            raise BadInputError(f"cannot import {file}: kb import reads a local file (a path "
+                                "or a file:// URI); download it first")
+        file = history_location(file)
     src = Path(file)
     if not src.is_file():
         raise BadInputError(f"export file not found: {src}")
