@@ -138,7 +138,7 @@ class Client:
         except (ValueError, KeyError, TypeError, OSError):
             message, kind = f"HTTP {exc.code} {exc.reason}", ""
         if exc.code in (401, 403):
-            hint = "" if self.token else f" (none given: set ${TOKEN_ENV})"
+            hint = "" if self.token else f"; none was given: set ${TOKEN_ENV}"
             return NotAuthorisedError(message + hint)
         if kind == wire.NOTHING_TO_SUGGEST:
             return NothingToSuggestError(message)
