@@ -111,8 +111,8 @@ def generate(root: Path, n_datasets: int, n_trials: int, seed: int = 0,
                         "meta_features": json.dumps(fp.to_dict()["meta_features"]),
                         "warnings": "[]", "created_at": now})
         st_rows.append({"study_id": sid, "dataset_id": did, "family": fam, "task": task,
-                        "metric": METRIC[task], "direction": "maximize", "label": f"s{d}",
-                        "n_trials": per, "source": "log", "tool_version": "bench",
+                        "metric": METRIC[task], "better": "higher", "label": f"s{d}",
+                        "trial_count": per, "source": "log", "tool_version": "bench",
                         "created_at": now})
         pool = pools[fam, task]
         t_study.append(np.full(per, sid, dtype=object))

@@ -91,7 +91,8 @@ def main(argv=None) -> None:
     t0 = time.monotonic()
     chosen = select(load_datasets(row_cap=args.rows), args.datasets)
     space = RESTRICT.get(args.family)
-    common = dict(family=args.family, cv=args.cv, seed=args.seed, space=space)
+    common = dict(family=args.family, cv=args.cv, seed=args.seed, space=space,
+                  refit=False)  # scores only: no final model needed
     from warmstart.strategies import DEFAULT_STRATEGY
 
     args.strategy = args.strategy or DEFAULT_STRATEGY

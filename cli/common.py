@@ -18,7 +18,7 @@ import click
 
 from cli.output import FULL_WIDTH
 from warmstart.errors import BadInputError, WarmstartError
-from warmstart.metrics import MAXIMIZE, MINIMIZE
+from warmstart.metrics import HIGHER, LOWER
 from warmstart.tasks import TASKS
 
 # cli.main imports this module for every command, --help included: numpy, pandas,
@@ -134,7 +134,7 @@ class CommandGroup(click.Group):
 
 
 def direction_options(func):
-    """``--lower-is-better`` / ``--higher-is-better`` as ``direction``; both is an error."""
+    """``--lower-is-better`` / ``--higher-is-better`` as ``better``; both is an error."""
 
     def record(ctx: click.Context, param: click.Parameter, value: bool) -> bool:
         if value:
@@ -147,8 +147,8 @@ def direction_options(func):
     def join(func):
         @functools.wraps(func)
         def wrapper(*args, lower_is_better=False, higher_is_better=False, **kwargs):
-            kwargs["direction"] = (MINIMIZE if lower_is_better else
-                                   MAXIMIZE if higher_is_better else None)
+            kwargs["better"] = (LOWER if lower_is_better else
+                                HIGHER if higher_is_better else None)
             return func(*args, **kwargs)
         return wrapper
 

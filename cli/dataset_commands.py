@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 import click
@@ -90,30 +91,50 @@ def _echo_catalogue(as_json: bool) -> None:
 @click.option("--metric", default=None,
               help="scikit-learn scorer name [default: balanced_accuracy or r2].")
 @direction_options
-@click.option("--name", default=None, help="Label for the study [default: file name].")
+@click.option("--name", default=None,
+              help="Label for the study, and the dataset's name: renames a dataset "
+                   "already in the history [default: its name, else the file name].")
 @cluster_option
 @kb_option
 @json_option
 @handle_errors
-def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, direction,
+def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, better,
             name, cluster, kb_path, server, as_json) -> None:
     """Log a finished study (its trials) into the team history."""
     kb = open_history(kb_path, server)
     fp = query_fingerprint(data, target, task, fingerprint_file, cluster)
+    # DATA goes along so that its file name labels a new dataset, as when the library
+    # reads DATA itself (the fingerprint computed here is the one used)
     study = kb.log(
-        target=target, family=family, trials=trials_file, metric=metric,
-        direction=direction, fingerprint_of=fp, task=task,
-        # the file's name labels the study, as when the library reads DATA itself
-        name=name or (Path(data).stem if fingerprint_file is None else None))
+        None if fingerprint_file is not None else data, target=target, family=family,
+        trials=trials_file, metric=metric, better=better, fingerprint_of=fp, task=task,
+        name=name)
     for w in fp.warnings:
         click.echo(f"warning: {w}", err=True)
-    if as_json:
+    if as_json:  # its "metric" says which metric was recorded
         emit_json(study.to_dict())
+        return
+    if study.already_logged:
+        click.echo(f"already logged as {study.study_id} (same dataset, family, metric and "
+                   "trials); nothing written")
         return
     what = "new dataset" if study.dataset_is_new else "dataset already in the history"
     click.echo(f"logged study {study.study_id[:12]} ({study.family}, {study.task}, "
-               f"{study.metric}): {study.n_trials} trials, {study.n_ok} ok, best "
+               f"{study.metric}): {study.trial_count} trials, {study.n_ok} ok, best "
                f"{fmt(study.best_score)}; {what} {study.dataset_id} '{study.label}'")
+    if metric is None:
+        click.echo(_metric_note(study))
+
+
+def _metric_note(study) -> str:
+    """Which metric the scores were recorded as when the user named none."""
+    note = (f"note: no --metric given, so the scores were recorded as {study.metric} (the "
+            "default); ")
+    if study.task == "classification":
+        # a search without scoring= uses the estimator's score(): accuracy for classifiers
+        return note + "a search without scoring= reports accuracy: log those with " \
+                      "--metric accuracy"
+    return note + "for another metric, log with --metric NAME"
 
 
 # -- similar ----------------------------------------------------------------------------
@@ -168,13 +189,20 @@ def similar_cmd(data, target, task, fingerprint_file, k, cluster, kb_path, serve
                    "no limit].")
 @click.option("--seed", type=int, default=0, show_default=True,
               help="Seed for strategies that draw at random.")
+@click.option("--format", "out_format", type=click.Choice(["table", "json", "grid"]),
+              default=None, help="table (default), json (as --json), or grid: the "
+                                 "configurations as a JSON list of one-value-per-parameter "
+                                 "dicts, a param_grid for scikit-learn's GridSearchCV.")
 @cluster_option
 @kb_option
 @json_option
 @handle_errors
 def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strategy,
-                space_file, max_fit_seconds, seed, cluster, kb_path, server, as_json) -> None:
+                space_file, max_fit_seconds, seed, out_format, cluster, kb_path,
+                server, as_json) -> None:
     """Suggest starting configurations for FAMILY on DATA."""
+    if as_json and out_format not in (None, "json"):
+        raise click.UsageError(f"--json and --format {out_format} contradict each other")
     kb = open_history(kb_path, server)
     fp = query_fingerprint(data, target, task, fingerprint_file, cluster)
     try:
@@ -184,7 +212,11 @@ def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strateg
             fingerprint_of=fp)
     except NothingToSuggestError as exc:  # worded like similar's and backtest's
         raise NothingToSuggestError(f"nothing to compare with: {exc}") from None
-    if as_json:
+    if out_format == "grid":  # one configuration a line, full precision
+        grid = [json.dumps(g, allow_nan=False) for g in found.to_grid()]
+        click.echo("[\n" + ",\n".join(f"  {g}" for g in grid) + "\n]")
+        return
+    if as_json or out_format == "json":
         emit_json([s.to_dict() for s in found])
         return
     click.echo(task_line(fp, task, fingerprint_file))
@@ -206,17 +238,19 @@ def _echo_suggestions(found) -> None:
     "best on" and "adds" only when some suggestion explains its rank."""
     pooled = any(s.expected_normalised is not None for s in found)
     explained = any(s.gain is not None for s in found)
+    moved = any(s.moved for s in found)
     rows = [[s.rank, s.source_name or "-", s.distance, s.normalised_score, s.score]
             + ([None if s.expected_normalised is None else
                 fmt(s.expected_normalised) + ("*" if s.predicted else "")] if pooled else [])
             + ([_best_on(s), s.gain] if explained else [])
-            + [s.expected_fit_seconds, s.config or "(estimator defaults)"] for s in found]
+            + [s.expected_fit_seconds] + ([_moved(s) or "-"] if moved else [])
+            + [s.config or "(estimator defaults)"] for s in found]
     headers = ["#", "from dataset", "distance", "norm. score", "score"]
     headers += ["expected"] if pooled else []
     headers += ["best on (norm. score)", "adds"] if explained else []
-    headers += ["est. fit s", "configuration"]
+    headers += ["est. fit s"] + (["moved into the space"] if moved else []) + ["configuration"]
     click.echo(table(rows, headers, align="rlrrr" + ("r" if pooled else "")
-                     + ("lr" if explained else "") + "rl"))
+                     + ("lr" if explained else "") + "r" + ("l" if moved else "") + "l"))
     if pooled:
         click.echo("expected: similarity-weighted mean norm. score over the nearest datasets "
                    "(* = partly predicted by surrogates)")
@@ -226,6 +260,18 @@ def _echo_suggestions(found) -> None:
     if explained:
         click.echo("best on: datasets where it was run and scored highest; adds: its gain in "
                    "the list's objective over the suggestions above it")
+    if moved:
+        click.echo("moved into the space: the source trial's values (as logged) that were "
+                   "brought into the search space (--space, or the family's)")
+
+
+def _moved(s) -> str:
+    """``gamma: 50 -> 10; tol: 0.01 -> not searched``."""
+    def value(v):
+        return "None" if v is None else fmt(v)
+    return "; ".join(f"{m['parameter']}: {value(m['from'])} -> "
+                     + ("not searched" if m.get("dropped") else value(m["to"]))
+                     for m in s.moved)
 
 
 def _best_on(s) -> str:

@@ -31,6 +31,9 @@ EXAMPLES: dict[str, str] = {
     "kb export": "warmstart kb export team-history.zip",
     "kb import": "warmstart kb import other-team.zip --kb knowledge_base",
     "kb migrate": "warmstart kb migrate --kb old_history",
+    "kb list": "warmstart kb list --kb knowledge_base",
+    "kb show": "warmstart kb show quillmarsh-basket-size --kb knowledge_base",
+    "kb delete": "warmstart kb delete 3f2a9c1e --kb /tmp/scratch-kb",
 }
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import sys
 from pathlib import Path
 
@@ -49,6 +50,9 @@ def kb_info_cmd(kb_path, server, as_json) -> None:
         rows = [[r["family"], r["task"], r["metric"], r["studies"], r["datasets"], r["trials"]]
                 for r in info["by_family"]]
         click.echo(table(rows, ["family", "task", "metric", "studies", "datasets", "trials"]))
+    if info["studies_all_failed"]:
+        click.echo(f"studies with no successful trial: {info['studies_all_failed']} (kept; "
+                   "suggest, backtest and similar leave them out)")
     versions = ", ".join(f"v{k}: {v}" for k, v in
                          info["fingerprints_by_catalogue_version"].items())
     click.echo(f"fingerprints by catalogue version: {versions or 'none'}")
@@ -57,14 +61,19 @@ def kb_info_cmd(kb_path, server, as_json) -> None:
 @kb_group.command("check")
 @kb_option
 @click.option("--repair", is_flag=True,
-              help="Remove leftovers of killed writers; set unreadable files aside.")
+              help="Remove leftovers of killed writers; move unreadable and foreign "
+                   "files to quarantine/ (never deleted).")
 @click.option("--grace", "grace_seconds", type=float, default=None,
               help="Leftovers younger than this many seconds may belong to a running "
                    "writer and are left alone [default: 900].")
 @json_option
 @handle_errors
 def kb_check_cmd(kb_path, server, repair, grace_seconds, as_json) -> None:
-    """Verify the history's integrity (exit code 1 when a problem remains)."""
+    """Verify the history's integrity (exit code 1 when a problem remains).
+
+    Notes (exit code 0) include studies whose every trial failed: they are kept, and
+    suggest, backtest and similar leave them out.
+    """
     report = open_history(kb_path, server).check(repair=repair, grace_seconds=grace_seconds)
     if as_json:
         emit_json(report.to_dict())
@@ -88,10 +97,18 @@ def kb_check_cmd(kb_path, server, repair, grace_seconds, as_json) -> None:
 @json_option
 @handle_errors
 def kb_compact_cmd(kb_path, server, as_json) -> None:
-    """Merge each table's many small files into one (content unchanged)."""
+    """Merge each table's many small files into one (content unchanged).
+
+    One compaction runs at a time: while another holds the history's lock, this one
+    says so and exits 0. A lock whose process is gone, or older than an hour, is taken
+    over.
+    """
     out = open_history(kb_path, server).compact()
     if as_json:
         emit_json(out)
+        return
+    if not out["compacted"]:
+        click.echo(f"another compaction is running ({out['running']}); nothing done")
         return
     b, a = out["before"], out["after"]
     rows = [[what, b[key], a[key]] for what, key in
@@ -124,7 +141,11 @@ def kb_export_cmd(file, kb_path, server, as_json) -> None:
 @json_option
 @handle_errors
 def kb_import_cmd(file, kb_path, server, as_json) -> None:
-    """Merge another team's exported FILE; studies already present are skipped."""
+    """Merge another team's exported FILE; studies already present are skipped.
+
+    The file is checked before anything is written: its tables must have the content
+    hash its marker states, and it may hold at most 2 GiB uncompressed.
+    """
     out = open_history(kb_path, server).import_(file)
     if as_json:
         emit_json(out)
@@ -150,3 +171,79 @@ def kb_migrate_cmd(kb_path, as_json) -> None:
     click.echo(f"migrated {out['path']} from format {out['from_version']} to "
                f"{out['to_version']}: {out['datasets']} datasets, {out['studies']} studies, "
                f"{out['trials']} trials; old file kept at {out['backup']}")
+
+
+# -- the studies as records ---------------------------------------------------------------
+def _study_line(s) -> list:
+    return [s["study_id"][:12], s["family"], s["metric"], s["better"], s["trial_count"],
+            s["ok"], s["best_score"], s["created_at"][:10], s["label"]]
+
+
+_STUDY_HEAD = ["study", "family", "metric", "better", "trials", "ok", "best", "logged",
+               "label"]
+
+
+@kb_group.command("list")
+@kb_option
+@json_option
+@handle_errors
+def kb_list_cmd(kb_path, server, as_json) -> None:
+    """The datasets with their studies: ids, family, metric, trials, best score, date."""
+    datasets = open_history(kb_path, server).list_studies()
+    if as_json:
+        emit_json(datasets)
+        return
+    if not datasets:
+        click.echo("the history holds no studies yet (add one with 'warmstart log')")
+        return
+    rows = [[d["name"], d["dataset_id"][:12], *_study_line(s)]
+            for d in datasets for s in d["studies"]]
+    click.echo(table(rows, ["dataset", "id", *_STUDY_HEAD], align="lllllrrrll"))
+    n = sum(len(d["studies"]) for d in datasets)
+    click.echo(f"{len(datasets)} datasets, {n} studies")
+
+
+@kb_group.command("show")
+@click.argument("ref", metavar="STUDY|DATASET")
+@kb_option
+@json_option
+@handle_errors
+def kb_show_cmd(ref, kb_path, server, as_json) -> None:
+    """One study (its trials) or one dataset (its studies), by id, unique id prefix or
+    name."""
+    out = open_history(kb_path, server).show(ref)
+    if as_json:
+        emit_json(out)
+        return
+    if out["kind"] == "dataset":
+        click.echo(f"dataset {out['dataset_id']} '{out['name']}': {out['task']}, target "
+                   f"{out['target']}, {len(out['meta_features'])} meta-features, first "
+                   f"logged {out['created_at']}")
+        click.echo(table([_study_line(s) for s in out["studies"]], _STUDY_HEAD,
+                         align="llllrrrll"))
+        return
+    click.echo(f"study {out['study_id']} '{out['label']}' on dataset {out['dataset_id']} "
+               f"'{out['dataset_name']}': {out['family']}, {out['task']}, {out['metric']} "
+               f"({out['better']} is better), {out['trial_count']} trials, "
+               f"{out['source']}, logged {out['created_at']}")
+    rows = [[t["trial_index"], t["status"], t["score"], t["fit_seconds"],
+             json.dumps(t["config"], sort_keys=True)] for t in out["trials"]]
+    click.echo(table(rows, ["trial", "status", "score", "fit s", "configuration"],
+                     align="rlrrl"))
+
+
+@kb_group.command("delete")
+@click.argument("ref", metavar="STUDY")
+@kb_option
+@json_option
+@handle_errors
+def kb_delete_cmd(ref, kb_path, server, as_json) -> None:
+    """Delete one STUDY (id, unique id prefix or label): every reader skips it from now
+    on, and 'kb compact' drops its rows."""
+    out = open_history(kb_path, server).delete(ref)
+    if as_json:
+        emit_json(out)
+        return
+    click.echo(f"deleted study {out['study_id']} ({out['family']}, {out['metric']}, "
+               f"{out['trial_count']} trials) of dataset {out['dataset_id']} "
+               f"'{out['dataset_name']}'")

@@ -74,7 +74,8 @@ def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, s
                       seed=seed, jobs=jobs, time_limit=time_limit, search=search, kb=history,
                       log=not no_log, task=task, out=out, name=name, warm_start=warm_start,
                       space=space_file, strategy=strategy, progress=bar,
-                      max_fit_seconds=max_fit_seconds, cluster=cluster)
+                      max_fit_seconds=max_fit_seconds, cluster=cluster,
+                      refit=False)  # the command keeps no model: nothing is pickled
     finally:
         bar.close()
     if as_json:

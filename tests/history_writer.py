@@ -14,6 +14,12 @@
     listings are used here between kills (no Parquet reads), so the forked children
     start with a clean Arrow thread pool. Prints one JSON line per round.
 
+``python history_writer.py delete KB FINGERPRINT IDS_FILE``
+    Delete the studies listed in IDS_FILE (``kb delete``), appending each id to
+    ``KB.deleted`` once its tombstone is written.
+``python history_writer.py compact KB FINGERPRINT ROUNDS``
+    Compact the history ROUNDS times in a row.
+
 Every child appends the id of each study whose ``log`` returned to ``KB.committed``.
 """
 
@@ -26,6 +32,7 @@ import signal
 import sys
 import time
 import traceback
+import zlib
 from pathlib import Path
 
 from warmstart.fingerprint import Fingerprint
@@ -34,8 +41,10 @@ from warmstart.storage import PAUSE_ENV, PAUSE_SECONDS_ENV, PAUSE_STEPS, TEMP_PR
 
 
 def trials(tag: str, i: int) -> list[dict]:
-    # Small, distinct per study, so a mixed-up trial would be noticed.
-    return [{"n_estimators": 10 + (i % 50) + j, "max_depth": 2 + j, "score": 0.5 + 0.001 * j}
+    # Small, distinct per study (writer tag and number), so a mixed-up trial would be
+    # noticed and no study is refused as already logged.
+    shift = (zlib.crc32(tag.encode()) % 997) * 1e-7
+    return [{"n_estimators": 10 + i + j, "max_depth": 2 + j, "score": 0.5 + 0.001 * j + shift}
             for j in range(3)]
 
 
@@ -110,6 +119,20 @@ def kill_rounds(kb: KnowledgeBase, fp: Fingerprint, rounds: int, seed: int) -> N
                           "leftovers": new}), flush=True)
 
 
+def delete_all(kb: KnowledgeBase, ids_file: str) -> None:
+    """Delete the studies listed in ``ids_file``, recording each one deleted."""
+    record = kb.path.parent / f"{kb.path.name}.deleted"
+    for sid in Path(ids_file).read_text().split():
+        kb.delete(sid)
+        with open(record, "a") as fh:
+            fh.write(sid + "\n")
+
+
+def compact_loop(kb: KnowledgeBase, rounds: int) -> None:
+    for _ in range(rounds):
+        kb.compact()
+
+
 def warm_imports(fp: Fingerprint) -> None:
     """Check one study's trials in this process, writing nothing, so that the modules a
     log imports lazily (the estimator's for its parameter checks) are loaded before any
@@ -133,6 +156,10 @@ def main(argv: list[str]) -> None:
         sys.exit(fork_write(kb, fp, int(argv[3]), int(argv[4])))
     elif mode == "kill":
         kill_rounds(kb, fp, int(argv[3]), int(argv[4]))
+    elif mode == "delete":
+        delete_all(kb, argv[3])
+    elif mode == "compact":
+        compact_loop(kb, int(argv[3]))
     else:
         raise SystemExit(f"unknown mode {mode}")
 

@@ -6,22 +6,28 @@ warnings instead (exit 0).
 from __future__ import annotations
 
 import hashlib
+import io
 import json
 import os
 import shutil
 import socket
+import zipfile
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
 import pytest
 from click.testing import CliRunner
 from sklearn.datasets import load_iris
 
 from cli.main import main
 from tests.conftest import dir_digest
+from tests.test_history_hardening import declared_size, iris_parquet, text_scores_parquet
 from warmstart import Fingerprint, fingerprint
 from warmstart.history import KnowledgeBase
+from warmstart.maintenance import EXPORT_MARKER
 
 GOOD_TRIALS = "n_estimators,max_depth,score,fit_seconds\n100,4,0.95,0.3\n200,,0.96,0.5\n"
 PNG = b"\x89PNG\r\n\x1a\n\x00\x00\x00\rIHDR" + bytes(range(256))
@@ -83,6 +89,61 @@ class Work:
 
     def fp_dict(self, **change):
         return {**self.fp.to_dict(), **change}
+
+    def fp_values(self, **change):
+        d = self.fp.to_dict()
+        return {**d, "meta_features": {**d["meta_features"], **change}}
+
+    def marker(self, version) -> list[str]:
+        """The history's marker with ``format_version`` set to ``version``; then log."""
+        path = self.kb / "warmstart-history.json"
+        path.write_text(json.dumps({**json.loads(path.read_text()),
+                                    "format_version": version}))
+        return self.log()
+
+    def import_(self, marker: dict | None = None, drop: str | None = None,
+                **replace: bytes) -> list[str]:
+        """``kb import`` of this history's export, its marker updated with ``marker``,
+        member ``drop`` left out, members replaced (``trials=b"..."``)."""
+        export = self.root / "export.zip"
+        KnowledgeBase(self.kb).export(export)
+        crafted = self.root / "crafted.zip"
+        with zipfile.ZipFile(export) as zin, zipfile.ZipFile(crafted, "w") as zout:
+            for name in zin.namelist():
+                data = zin.read(name)
+                if name == EXPORT_MARKER and marker is not None:
+                    data = json.dumps({**json.loads(data), **marker}).encode()
+                if name != drop:
+                    zout.writestr(name, replace.get(name.removesuffix(".parquet"), data))
+        return ["kb", "import", str(crafted), "--kb", str(self.kb)]
+
+    def edited_trials(self) -> bytes:
+        with zipfile.ZipFile(self.root / "export.zip") as zf:
+            frame = pq.read_table(io.BytesIO(zf.read("trials.parquet"))).to_pandas()
+        frame["score"] = frame["score"] + 0.01
+        buf = io.BytesIO()
+        pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), buf)
+        return buf.getvalue()
+
+    def foreign(self, where: str, content: bytes, command: str = "info") -> list[str]:
+        (self.kb / where).write_bytes(content)
+        return ["kb", command, "--kb", str(self.kb)]
+
+
+def _import_declaring(w: Work, size: int) -> list[str]:
+    """An import of an export whose trials member declares ``size`` bytes."""
+    args = w.import_()
+    declared_size(Path(args[2]), "trials.parquet", size)
+    return args
+
+
+def _import_lying(w: Work) -> list[str]:
+    """An import whose trials member inflates to 16 MiB of zeros but declares 100 bytes."""
+    args = w.import_(drop="trials.parquet")
+    with zipfile.ZipFile(args[2], "a", compression=zipfile.ZIP_DEFLATED) as zf:
+        zf.writestr("trials.parquet", bytes(16 << 20))
+    declared_size(Path(args[2]), "trials.parquet", 100)
+    return args
 
 
 def _socket(path: Path) -> Path:
@@ -165,8 +226,8 @@ CASES = [  # id, builder(w) -> CLI args, substring the error must contain
     ("trials file is a PNG", lambda w: w.log(None, w.write("t.png", PNG)),
      "not a text table"),
     # metric
-    ("unknown metric without a direction",
-     lambda w: w.log(None, None, "--metric", "team_lift"), "say its direction"),
+    ("unknown metric without which way is better",
+     lambda w: w.log(None, None, "--metric", "team_lift"), "say which way is better"),
     ("scikit-learn scorer declared lower-is-better",
      lambda w: w.log(None, None, "--metric", "accuracy", "--lower-is-better"),
      "higher-is-better"),
@@ -236,6 +297,19 @@ CASES = [  # id, builder(w) -> CLI args, substring the error must contain
     ("both metric directions", lambda w: w.log(None, None, "--metric", "team_lift",
                                                "--higher-is-better", "--lower-is-better"),
      "contradict each other"),
+    # kb show / delete: names that match nothing, or too much
+    ("kb show of an unknown name", lambda w: ["kb", "show", "no-such-data", "--kb", str(w.kb)],
+     "no study or dataset 'no-such-data'"),
+    ("kb show of a blank name", lambda w: ["kb", "show", " ", "--kb", str(w.kb)],
+     "name a study or dataset"),
+    ("kb show of a 2-digit prefix", lambda w: ["kb", "show", "ab", "--kb", str(w.kb)],
+     "no study or dataset 'ab'"),
+    ("kb delete of an unknown label", lambda w: ["kb", "delete", "iris-x", "--kb", str(w.kb)],
+     "no study 'iris-x'"),
+    ("kb delete of an unknown id",
+     lambda w: ["kb", "delete", "0" * 32, "--kb", str(w.kb)], "no study '0000"),
+    ("kb delete without a study", lambda w: ["kb", "delete", "--kb", str(w.kb)],
+     "Missing argument 'STUDY'"),
     # outputs checked before any work
     ("tune --out in a missing folder",
      lambda w: w.tune("--out", w.root / "nowhere" / "best.json"), "does not exist"),
@@ -243,6 +317,51 @@ CASES = [  # id, builder(w) -> CLI args, substring the error must contain
     ("backtest --plot in /proc",
      lambda w: ["backtest", "-f", "random_forest", "--plot", "/proc/regret.png", "--kb",
                 str(w.kb)], "cannot write the plot"),
+    # format versions are JSON integers, in the history's marker and in exports alike
+    ("marker version is the string \"1\"", lambda w: w.marker("1"),
+     "format_version '1' is not a format version"),
+    ("marker version is 1.5", lambda w: w.marker(1.5), "format_version 1.5 is not a"),
+    ("marker version is true", lambda w: w.marker(True), "format_version True is not a"),
+    ("export version is the string \"1\"", lambda w: w.import_({"format_version": "1"}),
+     "format_version '1' is not a format version"),
+    ("export version is 1.5", lambda w: w.import_({"format_version": 1.5}),
+     "format_version 1.5 is not a"),
+    ("export version is true", lambda w: w.import_({"format_version": True}),
+     "format_version True is not a"),
+    # exports are verified, and read within a bound
+    ("export with an edited trials table",
+     lambda w: (w.import_(), w.import_(trials=w.edited_trials()))[1], "content hash"),
+    ("export marker without a content hash", lambda w: w.import_({"content_hash": None}),
+     "no content_hash"),
+    ("export without its studies table", lambda w: w.import_(drop="studies.parquet"),
+     "missing studies.parquet"),
+    ("export member declaring 3 GiB", lambda w: _import_declaring(w, 3 << 30),
+     "kb import reads at most 2,147,483,648"),
+    ("export member lying about its size", _import_lying, "Bad CRC-32"),
+    ("export member of 16 MiB of zeros", lambda w: w.import_(trials=bytes(16 << 20)),
+     "Parquet magic bytes not found"),
+    # foreign files in table folders: one line pointing to kb check --repair
+    ("a data set copied into datasets/",
+     lambda w: w.foreign("datasets/copy.parquet", iris_parquet()), "kb check --repair"),
+    ("a text file named .parquet in studies/",
+     lambda w: w.foreign("studies/notes.parquet", b"ask about churn\n"),
+     "studies/notes.parquet is not one of its files"),
+    ("trials/ file with text scores, then compact",
+     lambda w: w.foreign("trials/t.parquet", text_scores_parquet(), "compact"),
+     "(column 'score' is string, not double)"),
+    # fingerprint values inside the catalogue's ranges
+    ("fingerprint with rows = -5", lambda w: w.log_fp(w.fp_values(rows=-5)),
+     "'rows' is -5, outside its range [1, inf)"),
+    ("fingerprint with a proportion of 1.7",
+     lambda w: w.log_fp(w.fp_values(majority_class_share=1.7)),
+     "'majority_class_share' is 1.7, outside its range (0, 1]"),
+    ("fingerprint with 2.5 classes", lambda w: w.log_fp(w.fp_values(classes=2.5)),
+     "'classes' is 2.5, not a whole number"),
+    ("fingerprint with more missingness patterns than rows",
+     lambda w: w.log_fp(w.fp_values(missing_pattern_count=151)),
+     "outside its range [1, rows]"),
+    ("fingerprint catalogue version true",
+     lambda w: w.log_fp(w.fp_dict(catalogue_version=True)), "unknown catalogue version True"),
 ]
 
 
@@ -259,7 +378,7 @@ def test_malformed_input_is_refused_and_nothing_written(tmp_path, template, buil
     assert dir_digest(w.kb) == before
 
 
-def test_at_least_sixty_five_distinct_malformed_inputs(tmp_path, template):
+def test_at_least_eighty_five_distinct_malformed_inputs(tmp_path, template):
     # Each case is a different input, not another name for one already listed: its
     # arguments, with files replaced by their bytes and directories by their place,
     # together with the state of its history (reference: common practice).
@@ -277,7 +396,7 @@ def test_at_least_sixty_five_distinct_malformed_inputs(tmp_path, template):
             return ("dir " if path.is_dir() else "absent ") + str(path.relative_to(w.root))
 
         inputs.add((tuple(map(content, args)), tuple(sorted(dir_digest(w.kb).items()))))
-    assert len(inputs) == len(CASES) >= 65
+    assert len(inputs) == len(CASES) >= 85
 
 
 def test_read_only_history_is_refused(tmp_path, template, monkeypatch):

@@ -114,7 +114,7 @@ def test_csv_trials_with_empty_cells_mean_unset(history, tmp_path, iris_csv):
               "--trials", t, "--kb", history, "--json")
     assert res.exit_code == 0, res.output
     logged = json.loads(res.output)
-    assert logged["n_trials"] == 3 and logged["n_ok"] == 2 and logged["best_score"] == 0.93
+    assert logged["trial_count"] == 3 and logged["n_ok"] == 2 and logged["best_score"] == 0.93
     res = run("suggest", iris_csv, "--target", "target", "--family", "random_forest",
               "--kb", history, "--json")
     first = json.loads(res.output)[0]["config"]
@@ -130,6 +130,10 @@ def test_history_location_flag_env_and_default(tmp_path, iris_csv, monkeypatch):
     args = ["log", iris_csv, "--target", "target", "--family", "random_forest", "--trials", t]
     assert run(*args).exit_code == 0  # ./knowledge_base
     assert run(*args, env={"WARMSTART_KB": str(tmp_path / "other")}).exit_code == 0
+    # the same study again is refused (exit 0, nothing written); other trials are logged
+    again = run(*args, "--kb", "other")
+    assert again.exit_code == 0 and "already logged as" in again.output
+    args[-1] = trials_file(tmp_path / "t2.jsonl", 1)
     assert run(*args, "--kb", "other").exit_code == 0
     count = {p: json.loads(run("kb", "info", "--kb", p, "--json").output)["studies"]
              for p in ("knowledge_base", "other")}

@@ -26,7 +26,7 @@ from warmstart.fingerprint import CATALOGUE, CATALOGUE_VERSION
 from warmstart.history import KnowledgeBase
 from warmstart.metrics import resolve_metric
 from warmstart.pipelines import make_pipeline
-from warmstart.trials import validate_trials
+from warmstart.trials import check_trials
 
 ROOT = Path(__file__).resolve().parent.parent
 KB_PATH = ROOT / "knowledge_base"
@@ -73,7 +73,7 @@ def test_committed_history_is_complete(committed):
     assert studies["family"].nunique() >= 2
     counts = trials.groupby("study_id").size()
     assert (studies["study_id"].map(counts).fillna(0).astype(int)
-            == studies["n_trials"]).all()
+            == studies["trial_count"]).all()
     # Every dataset the generator declares is there, with one study per declared family.
     expected = {(gen.LABEL_PREFIX + s.name, f) for s in gen.DATASETS.values()
                 for f in s.families}
@@ -181,8 +181,8 @@ def test_example_dataset_is_new_and_suggest_gives_provenance(committed):
 
 def test_example_trials_file_logs(tmp_path):
     trials = pd.read_csv(EXAMPLE_TRIALS)
-    checked = validate_trials(trials, get_family(gen.HGB).space("classification"),
-                              resolve_metric("balanced_accuracy"))
+    checked = check_trials(trials, get_family(gen.HGB), "classification",
+                           resolve_metric("balanced_accuracy"))
     assert [t.status for t in checked].count("failed") == 1
     kb_dir = tmp_path / "kb"
     runner = CliRunner()
@@ -192,4 +192,4 @@ def test_example_trials_file_logs(tmp_path):
                                "--json"])
     assert res.exit_code == 0, res.output
     logged = json.loads(res.stdout)  # stderr has the fingerprint warnings
-    assert logged["n_trials"] == len(trials) and logged["n_ok"] == len(trials) - 1
+    assert logged["trial_count"] == len(trials) and logged["n_ok"] == len(trials) - 1

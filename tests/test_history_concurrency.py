@@ -7,18 +7,20 @@ from __future__ import annotations
 
 import json
 import os
+import signal
 import subprocess
 import sys
 import time
 from pathlib import Path
 
+import pyarrow.parquet as pq
 import pytest
 from sklearn.datasets import load_iris
 
 from warmstart import fingerprint
 from warmstart.history import KnowledgeBase
 from warmstart.maintenance import summary
-from warmstart.storage import PAUSE_STEPS, temp_files
+from warmstart.storage import PAUSE_ENV, PAUSE_SECONDS_ENV, PAUSE_STEPS, temp_files
 
 WRITER = Path(__file__).with_name("history_writer.py")
 ROOT = Path(__file__).resolve().parents[1]
@@ -43,7 +45,7 @@ def assert_consistent(kb: KnowledgeBase) -> dict:
     t = kb.tables()
     studies, trials = t["studies"], t["trials"]
     counts = trials.groupby("study_id").size()
-    assert (studies["study_id"].map(counts).fillna(0) == studies["n_trials"]).all()
+    assert (studies["study_id"].map(counts).fillna(0) == studies["trial_count"]).all()
     assert trials["study_id"].isin(studies["study_id"]).all()
     assert studies["dataset_id"].isin(t["datasets"]["dataset_id"]).all()
     assert not studies["study_id"].duplicated().any()
@@ -111,3 +113,67 @@ def test_writers_killed_mid_write_leave_nothing_visible(tmp_path, fp_file):
     after = summary(kb)
     assert after["content_hash"] == before["content_hash"]
     assert after["files"] == 3 * after["studies"]
+
+
+# -- deleting ---------------------------------------------------------------------------
+def test_deletes_beside_writers_compactions_and_readers(tmp_path, fp_file):
+    kb = KnowledgeBase.init(tmp_path / "kb")
+    first = run_writer("write", str(kb.path), str(fp_file), "old", "30")
+    assert first.wait() == 0, first.stderr.read()
+    old = sorted(kb.tables()["studies"]["study_id"])
+    doomed = old[::2]
+    ids = tmp_path / "doomed.txt"
+    ids.write_text("\n".join(doomed) + "\n")
+    procs = [run_writer("fork-write", str(kb.path), str(fp_file), "2", "25"),
+             run_writer("compact", str(kb.path), str(fp_file), "15"),
+             run_writer("delete", str(kb.path), str(fp_file), str(ids))]
+    reads = 0
+    while any(p.poll() is None for p in procs):  # a reader racing all three
+        t = assert_consistent(kb)
+        done = set((tmp_path / "kb.deleted").read_text().split()) if (
+            tmp_path / "kb.deleted").exists() else set()
+        # a delete that returned is seen by every read that starts after it
+        assert not done & set(kb.tables()["studies"]["study_id"])
+        reads += 1
+    for p in procs:
+        _out, err = p.communicate()
+        assert p.returncode == 0, err
+    t = assert_consistent(kb)
+    live = set(t["studies"]["study_id"])
+    assert not live & set(doomed)
+    assert set(old) - set(doomed) <= live
+    assert len(live) == len(old) - len(doomed) + 2 * 25
+    assert kb.check(grace_seconds=0).ok
+    kb.compact()
+    for table in ("studies", "trials"):
+        held = {s for f in (kb.path / table).glob("*.parquet")
+                for s in pq.read_table(f, columns=["study_id"]).column("study_id").to_pylist()}
+        assert not held & set(doomed)  # compaction dropped every deleted row
+    assert reads > 0
+
+
+@pytest.mark.parametrize("step", ["mid-file", "before-rename"])
+def test_a_delete_killed_mid_write_deletes_nothing(tmp_path, fp_file, step):
+    kb = KnowledgeBase.init(tmp_path / "kb")
+    w = run_writer("write", str(kb.path), str(fp_file), "s", "3")
+    assert w.wait() == 0, w.stderr.read()
+    target = sorted(kb.tables()["studies"]["study_id"])[0]
+    ids = tmp_path / "ids.txt"
+    ids.write_text(target + "\n")
+    env = {**os.environ, "PYTHONPATH": str(ROOT), PAUSE_ENV: step, PAUSE_SECONDS_ENV: "60"}
+    p = subprocess.Popen([sys.executable, str(WRITER), "delete", str(kb.path), str(fp_file),
+                          str(ids)], env=env, stderr=subprocess.PIPE)
+    deadline = time.time() + 60
+    while not temp_files(kb.path / "deletions") and time.time() < deadline:
+        time.sleep(0.05)
+    assert temp_files(kb.path / "deletions"), "the delete never reached its write"
+    p.send_signal(signal.SIGKILL)
+    p.wait()
+    t = assert_consistent(kb)
+    assert target in set(t["studies"]["study_id"])  # the tombstone never appeared
+    report = kb.check(grace_seconds=0)
+    assert [f.check for f in report.problems] == ["leftovers of killed writers"]
+    assert kb.check(repair=True, grace_seconds=0).ok
+    assert temp_files(kb.path) == []
+    kb.delete(target)  # and deleting again works
+    assert target not in set(kb.tables()["studies"]["study_id"])

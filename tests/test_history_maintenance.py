@@ -33,7 +33,8 @@ def cli(*args: str):
 
 def independent_hash(root: Path) -> tuple[dict[str, int], str]:
     """Row counts and a hash of the history's rows, computed without warmstart's reader:
-    every table read with pyarrow, one row per key (earliest dataset row), sorted, as JSON.
+    every table read with pyarrow, one row per key (a dataset's newest row, which names
+    it), sorted, as JSON.
     """
     counts, h = {}, hashlib.sha256()
     keys = {"datasets": ["dataset_id"], "studies": ["study_id"],
@@ -45,7 +46,9 @@ def independent_hash(root: Path) -> tuple[dict[str, int], str]:
             counts[name] = 0
             continue
         order = key + (["created_at"] if "created_at" in df else [])
-        df = df.sort_values(order).drop_duplicates(key).reset_index(drop=True)
+        newest_first = [True] * len(key) + [name != "datasets"] * (len(order) - len(key))
+        df = df.sort_values(order, ascending=newest_first).drop_duplicates(key)
+        df = df.sort_values(key).reset_index(drop=True)
         counts[name] = len(df)
         h.update(df.to_json(orient="records", date_format="iso").encode())
     return counts, h.hexdigest()
@@ -59,8 +62,9 @@ def fps():
                               ("diabetes", load_diabetes))}
 
 
-def fill(kb: KnowledgeBase, fps, n: int, prefix: str = "s") -> None:
-    for i in range(n):
+def fill(kb: KnowledgeBase, fps, n: int, prefix: str = "s", start: int = 0) -> None:
+    """Log ``n`` studies, each with trials of its own (numbers from ``start`` on)."""
+    for i in range(start, start + n):
         name = ("iris", "wine", "diabetes")[i % 3]
         kb.log(fingerprint_of=fps[name], family="random_forest", name=f"{prefix}{i}",
                trials=[{"n_estimators": 10 + i + j, "max_depth": 3, "score": 0.1 + 0.01 * j}
@@ -86,8 +90,8 @@ def _plant(kb: KnowledgeBase, study=None, trial=None, dataset=None) -> None:
          "target": "y", "catalogue_version": 1, "meta_features": '{"rows": 10.0}',
          "warnings": "[]", "created_at": now, **(dataset or {})}
     s = {"study_id": "e" * 32, "dataset_id": "d" * 16, "family": "random_forest",
-         "task": "classification", "metric": "accuracy", "direction": "maximize",
-         "label": "planted", "n_trials": 1, "source": "log", "tool_version": "0",
+         "task": "classification", "metric": "accuracy", "better": "higher",
+         "label": "planted", "trial_count": 1, "source": "log", "tool_version": "0",
          "created_at": now, **(study or {})}
     t = {"study_id": "e" * 32, "trial_index": 0, "config": '{"max_depth":3}', "score": 0.5,
          "fit_seconds": 1.0, "status": "ok", "error": None, **(trial or {})}
@@ -105,9 +109,9 @@ def _plant(kb: KnowledgeBase, study=None, trial=None, dataset=None) -> None:
     ({"trial": {"status": "maybe"}}, "known trial statuses"),
     ({"trial": {"config": "{not json"}}, "configurations are JSON objects"),
     ({"trial": {"fit_seconds": -2.0}}, "valid fit times"),
-    ({"study": {"n_trials": 5}}, "studies have all their trials"),
+    ({"study": {"trial_count": 5}}, "studies have all their trials"),
     ({"study": {"family": "no_such_family"}}, "known families"),
-    ({"study": {"direction": "sideways"}}, "valid tasks and directions"),
+    ({"study": {"better": "sideways"}}, "valid tasks and better values"),
     ({"dataset": {"catalogue_version": 99}}, "known catalogue versions"),
     ({"dataset": {"meta_features": "[1, 2"}}, "fingerprints are valid JSON"),
     ({"dataset": {"_skip": True}}, "studies have a dataset"),
@@ -132,7 +136,7 @@ def test_check_finds_clashing_ids_and_unreadable_files(kb, fps):
     # A file that is not Parquet: readers refuse with a message, repair sets it aside.
     (kb.path / "trials" / "garbage.parquet").write_bytes(b"\x89PNG\r\n\x1a\n" + bytes(100))
     r = cli("kb", "info", "--kb", kb.path)
-    assert r.exit_code == 2 and "garbage.parquet is unreadable" in r.output
+    assert r.exit_code == 2 and "garbage.parquet is not one of its files" in r.output
     r = cli("kb", "check", "--kb", kb.path, "--repair")
     assert "moved to quarantine/" in r.output
     assert (kb.path / "quarantine" / "trials" / "garbage.parquet").is_file()
@@ -151,7 +155,7 @@ def test_compact_keeps_content_and_merges_files(kb, fps):
     assert out["before"]["content_hash"] == out["after"]["content_hash"]
     assert independent_hash(kb.path) == (counts, digest)
     assert kb.check(grace_seconds=0).ok
-    fill(kb, fps, 2, prefix="late")  # logging after compaction still works
+    fill(kb, fps, 2, prefix="late", start=12)  # logging after compaction still works
     assert kb.check(grace_seconds=0).ok
     text = cli("kb", "compact", "--kb", kb.path).output
     assert "content unchanged" in text
@@ -186,13 +190,21 @@ def test_compact_beside_a_concurrent_writer(tmp_path, fps):
 
 
 # -- versions ---------------------------------------------------------------------------
-def test_migrate_format0_fixture(tmp_path):
+def migrated_copy(fixture: Path, tmp_path: Path, version: int) -> tuple[Path, dict]:
+    """A copy of an old-format ``fixture``, refused by readers, then migrated by the CLI;
+    returns its path and what ``kb migrate --json`` said."""
     path = tmp_path / "old"
-    shutil.copytree(FIXTURE, path)
+    shutil.copytree(fixture, path)
     r = cli("kb", "info", "--kb", path)
-    assert r.exit_code == 2 and "kb migrate" in r.output and "format version 0" in r.output
+    assert r.exit_code == 2 and "kb migrate" in r.output
+    assert f"format version {version}" in r.output
     r = cli("kb", "migrate", "--kb", path, "--json")
     assert r.exit_code == 0, r.output
+    return path, json.loads(r.output)
+
+
+def test_migrate_format0_fixture(tmp_path):
+    path, _out = migrated_copy(FIXTURE, tmp_path, 0)
     flat = pq.read_table(path / "backup-format-0" / "trials.parquet").to_pandas()
     kb = KnowledgeBase(path)
     t = kb.tables()
@@ -207,7 +219,7 @@ def test_migrate_format0_fixture(tmp_path):
         assert (a != a and b != b) or a == pytest.approx(b, rel=1e-12)
     assert kb.check(grace_seconds=0).ok
     # migrating again is a no-op
-    assert "already has format version 1" in cli("kb", "migrate", "--kb", path).output
+    assert "already has format version 2" in cli("kb", "migrate", "--kb", path).output
 
 
 def test_newer_format_is_refused_with_the_version_needed(kb):
@@ -226,7 +238,7 @@ def test_export_import_round_trip_between_two_teams(tmp_path, fps):
     a = KnowledgeBase.init(tmp_path / "a")
     b = KnowledgeBase.init(tmp_path / "b")
     fill(a, fps, 5, prefix="a")
-    fill(b, fps, 4, prefix="b")  # same datasets, different studies
+    fill(b, fps, 4, prefix="b", start=5)  # same datasets, different studies
     r = cli("kb", "export", tmp_path / "a.zip", "--kb", a.path, "--json")
     assert r.exit_code == 0, r.output
     r = cli("kb", "import", tmp_path / "a.zip", "--kb", b.path, "--json")

@@ -70,15 +70,20 @@ def test_compaction_keeps_the_cache_valid_and_the_answer_the_same(history, query
     assert _suggest(history, query) == before
 
 
-def test_after_a_study_is_deleted_warm_and_cold_caches_agree(history, query):
+def test_after_a_study_is_deleted_warm_and_cold_caches_agree(history, query, tmp_path):
     first = _suggest(history, query)
     victim = next(s["study_id"] for s in first if s["study_id"])
-    for table in ("studies", "trials"):
-        for f in (history / table).glob(f"{victim}-*.parquet"):
-            f.unlink()
+    KnowledgeBase(history).delete(victim)  # a tombstone; its rows stay until compaction
     warm = _suggest(history, query)
     assert all(s["study_id"] != victim for s in warm)
+    # reference: a new history holding the remaining studies (written by import)
+    KnowledgeBase(history).export(tmp_path / "rest.zip")
+    fresh = KnowledgeBase.init(tmp_path / "fresh")
+    fresh.import_(tmp_path / "rest.zip")
+    assert _suggest(fresh.path, query) == warm
     shutil.rmtree(history / CACHE_DIR)
+    assert _suggest(history, query) == warm
+    KnowledgeBase(history).compact()  # drops the deleted rows
     assert _suggest(history, query) == warm
 
 

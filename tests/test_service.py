@@ -295,8 +295,8 @@ def test_schema_errors_name_the_problem(server, history, query):
              ("/api/suggest", {"fingerprint": fp}, "family"),
              ("/api/similar", {"fingerprint": fp, "kk": 3}, "kk"),
              ("/api/log", {"fingerprint": fp, "family": "knn", "trials": []}, "trials"),
-             ("/api/log", {"fingerprint": fp, "family": "knn", "direction": "up",
-                           "trials": [{"score": 1}]}, "direction")]
+             ("/api/log", {"fingerprint": fp, "family": "knn", "better": "up",
+                           "trials": [{"score": 1}]}, "better")]
     for path, body, field in cases:
         status, _, text = call(server + path, "POST", body, token=TOKEN)
         answer = json.loads(text)

@@ -1,4 +1,4 @@
-"""Search spaces, metric directions and the trials validator."""
+"""Search spaces, which way metrics are better, and the trials validator."""
 
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ from sklearn.metrics import get_scorer, get_scorer_names
 
 from warmstart.errors import BadInputError
 from warmstart.families import FAMILIES, get_family
-from warmstart.metrics import MAXIMIZE, MINIMIZE, resolve_metric
+from warmstart.metrics import HIGHER, LOWER, resolve_metric
 from warmstart.spaces import SearchSpace, config_key
 
 
@@ -78,7 +78,7 @@ def test_every_scorer_is_higher_is_better(name):
     scorer = get_scorer(name)
     if scorer._sign == -1:
         assert name.startswith("neg_")
-    assert resolve_metric(name).direction == MAXIMIZE
+    assert resolve_metric(name).better == HIGHER
 
 
 def test_metric_ranges_and_custom_metrics():
@@ -86,8 +86,8 @@ def test_metric_ranges_and_custom_metrics():
     assert resolve_metric("balanced_accuracy").check(1.2)
     assert resolve_metric("r2").check(-3.0) is None and resolve_metric("r2").check(1.5)
     assert resolve_metric("neg_log_loss").check(0.3)
-    assert resolve_metric("weighted_cost", MINIMIZE).direction == MINIMIZE
+    assert resolve_metric("weighted_cost", LOWER).better == LOWER
     with pytest.raises(BadInputError, match="not a scikit-learn scorer"):
         resolve_metric("weighted_cost")
     with pytest.raises(BadInputError, match="higher-is-better"):
-        resolve_metric("r2", MINIMIZE)
+        resolve_metric("r2", LOWER)

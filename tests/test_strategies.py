@@ -64,16 +64,16 @@ def small_history(tmp_path_factory):
 def test_minmax_normalisation_matches_sklearn_and_respects_direction():
     s = np.array([0.2, 0.5, 0.9, 0.4])
     # reference: sklearn.preprocessing.minmax_scale
-    assert np.allclose(normalise_scores(s, "maximize"), minmax_scale(s))
+    assert np.allclose(normalise_scores(s, "higher"), minmax_scale(s))
     # lower is better: the smallest loss becomes 1
-    assert np.allclose(normalise_scores(s, "minimize"), minmax_scale(-s))
-    assert np.array_equal(normalise_scores(np.array([3.0, 3.0]), "maximize"), [1.0, 1.0])
+    assert np.allclose(normalise_scores(s, "lower"), minmax_scale(-s))
+    assert np.array_equal(normalise_scores(np.array([3.0, 3.0]), "higher"), [1.0, 1.0])
 
 
 def test_rank_normalisation_matches_scipy_rankdata():
     s = np.array([0.2, 0.5, 0.5, 0.9, -3.0])
     # reference: scipy.stats.rankdata (average ranks for ties)
-    assert np.allclose(normalise_scores(s, "maximize", "rank"), (rankdata(s) - 1) / 4)
+    assert np.allclose(normalise_scores(s, "higher", "rank"), (rankdata(s) - 1) / 4)
 
 
 def median_anchored(s: np.ndarray, regret_cap: float = 1.0) -> np.ndarray:

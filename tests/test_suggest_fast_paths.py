@@ -30,7 +30,7 @@ def _history(seed: int = 0, n_datasets: int = 6, per: int = 9):
         sid = f"s{d}"
         studies.append({"study_id": sid, "dataset_id": f"d{d}", "family": "knn",
                         "task": "classification", "metric": "m", "label": f"study {d}",
-                        "direction": "minimize" if d % 2 else "maximize"})
+                        "better": "lower" if d % 2 else "higher"})
         scores = np.round(rng.uniform(0, 1, per), 1)  # rounding makes ties
         if d == 3:
             scores[:] = 0.5
@@ -51,7 +51,7 @@ def test_prepare_trials_normalises_each_study_like_the_references(method):
     for _, st in studies.iterrows():
         got = t.loc[t["study_id"] == st["study_id"], "normalised"].to_numpy()
         s = t.loc[t["study_id"] == st["study_id"], "score"].to_numpy()
-        s = -s if st["direction"] == "minimize" else s
+        s = -s if st["better"] == "lower" else s
         if np.ptp(s) == 0:
             want = np.ones_like(s)  # reference: common practice (a flat study is all best)
         elif method == "rank":

@@ -22,7 +22,7 @@ from warmstart.errors import BadInputError
 from warmstart.families import FAMILIES, TASKS, get_family
 from warmstart.metrics import resolve_metric
 from warmstart.searches import parse_literal
-from warmstart.trials import MAX_PROBLEM_LINES, check_trials, estimator_rules, validate_trials
+from warmstart.trials import MAX_PROBLEM_LINES, check_trials, estimator_rules
 
 ACC = resolve_metric("accuracy")
 R2 = resolve_metric("r2")
@@ -172,11 +172,32 @@ def test_values_json_cannot_hold_are_named():
     assert "'ccp_alpha' = inf cannot be stored as JSON (not a finite number)" in message
 
 
-def test_in_space_tables_are_stored_as_before():
-    # reference: the previous space-based check, on the shipped example trials file
+def test_in_space_tables_are_stored_cell_for_cell():
+    # reference: the shipped example file's own cells; an empty cell is None where
+    # HistGradientBoostingClassifier's default is None (max_depth) and unset otherwise
     fam, metric = HGB, resolve_metric("balanced_accuracy")
-    before = validate_trials(EXAMPLE_TRIALS, fam.space("classification"), metric)
-    assert check_trials(EXAMPLE_TRIALS, fam, "classification", metric) == before
+    trials = check_trials(EXAMPLE_TRIALS, fam, "classification", metric)
+    base = {"max_depth": None}
+    assert [t.config for t in trials] == [
+        {"learning_rate": 0.1, "max_iter": 100, "max_leaf_nodes": 31, "min_samples_leaf": 20,
+         **base},
+        {"learning_rate": 0.05, "max_iter": 200, "max_leaf_nodes": 15, "min_samples_leaf": 40,
+         "l2_regularization": 1.0, **base},
+        {"learning_rate": 0.2, "max_iter": 60, "max_leaf_nodes": 63, "max_depth": 8},
+        {"learning_rate": 0.03, "max_iter": 300, "max_leaf_nodes": 8, "max_features": 0.5,
+         **base},
+        {"learning_rate": 0.005, "max_iter": 1000, "max_leaf_nodes": 256,
+         "min_samples_leaf": 1, **base}]
+    # integer columns read back as integers (the CSV wrote 20.0 beside empty cells)
+    assert all(type(t.config["max_iter"]) is int for t in trials)
+    assert type(trials[2].config["max_depth"]) is int
+    # every value lies in the family's space, so the space keeps it as it is
+    space = fam.space("classification")
+    assert all(space.validate(t.config) == t.config for t in trials)
+    assert [t.status for t in trials] == ["ok"] * 4 + ["failed"]
+    assert trials[0].score == 0.7313292723631509 and trials[4].score is None
+    assert trials[4].error == "stopped by the analyst: over the 10-minute budget"
+    assert [t.fit_seconds for t in trials] == [1.024, 1.123, 0.846, 0.953, None]
 
 
 @pytest.mark.parametrize("text, value", [

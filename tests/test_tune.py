@@ -75,7 +75,7 @@ def test_warm_start_evaluates_the_suggestions_first_and_logs(kb):
     assert [t.origin for t in result.trials[:2]] == ["warm-start", "warm-start"]
     t = kb.tables()
     study = t["studies"][t["studies"]["study_id"] == result.logged.study_id].iloc[0]
-    assert study["source"] == "tune" and study["n_trials"] == 4 and study["label"] == "iris"
+    assert study["source"] == "tune" and study["trial_count"] == 4 and study["label"] == "iris"
     logged = t["trials"][t["trials"]["study_id"] == result.logged.study_id]
     assert [json.loads(c) for c in logged.sort_values("trial_index")["config"]] == \
         [tr.config for tr in result.trials]
@@ -112,7 +112,7 @@ def test_time_limit_stops_between_trials_and_logs(kb):
                   time_limit=0.5)
     assert result.stopped == "time limit"
     assert 1 <= len(result.trials) < 200
-    assert result.logged.n_trials == len(result.trials)
+    assert result.logged.trial_count == len(result.trials)
 
 
 def interrupt_on_call(monkeypatch, n: int) -> None:
@@ -133,7 +133,7 @@ def test_interruption_keeps_finished_trials(kb, monkeypatch):
     interrupt_on_call(monkeypatch, 3)
     result = tune(iris(), target="target", family="linear", budget=5, cv=2, kb=kb)
     assert result.interrupted and len(result.trials) == 2
-    assert result.logged.n_trials == 2
+    assert result.logged.trial_count == 2
 
 
 def test_out_file_holds_the_best_configuration(tmp_path):

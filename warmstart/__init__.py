@@ -2,12 +2,13 @@
 
 The public API mirrors the command line one to one::
 
-    from warmstart import KnowledgeBase, fingerprint, families
+    from warmstart import KnowledgeBase, fingerprint, families, make_pipeline
     fp = fingerprint(df, target="churned")
     kb = KnowledgeBase("knowledge_base")
     kb.log(df, target="churned", family="random_forest", trials=trials_df)
     kb.similar(df, target="churned", k=5)
-    kb.suggest(df, target="churned", family="random_forest", k=10)
+    found = kb.suggest(df, target="churned", family="random_forest", k=10)
+    model = make_pipeline("random_forest", "classification", found[0].config, X).fit(X, y)
     kb.info()
 
 The public names are loaded on first use (module ``__getattr__``, PEP 562), so that
@@ -32,6 +33,7 @@ _LAZY = {
     "catalogue": "warmstart.fingerprint",
     "fingerprint": "warmstart.fingerprint",  # also a property of _Package below
     "KnowledgeBase": "warmstart.history",
+    "make_pipeline": "warmstart.pipelines",  # pulls in scikit-learn
     "Client": "warmstart.service.client",  # pulls in the HTTP client's modules
 }
 
@@ -39,6 +41,7 @@ if TYPE_CHECKING:  # pragma: no cover
     from warmstart.families import families
     from warmstart.fingerprint import Fingerprint, catalogue, fingerprint
     from warmstart.history import KnowledgeBase
+    from warmstart.pipelines import make_pipeline
     from warmstart.service.client import Client
 
 
@@ -68,5 +71,6 @@ class _Package(types.ModuleType):
 sys.modules[__name__].__class__ = _Package
 
 __all__ = ["BadInputError", "Client", "Fingerprint", "KnowledgeBase", "NothingToSuggestError",
-           "WarmstartError", "__version__", "catalogue", "families", "fingerprint"]
+           "WarmstartError", "__version__", "catalogue", "families", "fingerprint",
+           "make_pipeline"]
 

@@ -44,7 +44,7 @@ from warmstart.families import get_family
 from warmstart.families.base import Family
 from warmstart.fingerprint import Fingerprint
 from warmstart.io import check_writable
-from warmstart.metrics import MINIMIZE
+from warmstart.metrics import LOWER
 from warmstart.spaces import SearchSpace
 from warmstart.strategies import (
     STRATEGIES,
@@ -374,7 +374,7 @@ class _HeldOut:
 
     def __init__(self, plan: _TaskPlan, full: SearchSpace, dataset_id: str, seed: int):
         mine = plan.studies[plan.studies["dataset_id"] == dataset_id]
-        sign = -1.0 if mine["direction"].iloc[0] == MINIMIZE else 1.0
+        sign = -1.0 if mine["better"].iloc[0] == LOWER else 1.0
         self.own = plan.truth[plan.truth["study_id"].isin(mine["study_id"])]
         self.oriented = sign * self.own["score"].to_numpy(dtype=float)
         self.best = float(self.oriented.max())

@@ -13,7 +13,8 @@ study, its trials and its dataset row only once a study file holding it exists, 
 writer killed at any moment leaves nothing visible behind (``kb check --repair``
 removes what it left, see :mod:`warmstart.maintenance`). Rows are de-duplicated by key
 on read (a dataset logged by several studies keeps its earliest row), which is what lets
-compaction merge files beside live readers and writers. No locks anywhere: see
+compaction merge files beside live readers and writers. Readers and writers take no
+locks (only compactions hold one, against each other): see
 :mod:`warmstart.storage` for what this needs from a (network) filesystem. Any engine
 can read the tables, e.g. ``pandas.read_parquet("<history>/trials")``; readers of the
 raw files should apply the same visibility rule.
@@ -21,6 +22,7 @@ raw files should apply the same visibility rule.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import re
@@ -33,22 +35,25 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.dataset as pads
 
-from warmstart import maintenance, suggesting
+from warmstart import maintenance, migrations, records, suggesting
 from warmstart.errors import BadInputError
 from warmstart.families import get_family
 from warmstart.filesystems import history_location
 from warmstart.fingerprint import Fingerprint, fingerprint
 from warmstart.layout import (
+    DELETIONS,
     FORMAT_FILE,
     FORMAT_VERSION,
     SCHEMAS,
+    TABLE_DIRS,
     dedupe,
     read_current_marker,
     write_marker,
 )
-from warmstart.metrics import DEFAULT_METRIC, MAXIMIZE, MINIMIZE, Metric, resolve_metric
+from warmstart.metrics import DEFAULT_METRIC, HIGHER, LOWER, Metric, resolve_metric
 from warmstart.similarity import Neighbour, nearest
 from warmstart.spaces import SearchSpace, config_key
 from warmstart.storage import (
@@ -56,7 +61,6 @@ from warmstart.storage import (
     log_name,
     parse_log_name,
     read_dir,
-    visible_files,
     write_atomic,
 )
 from warmstart.strategies import DEFAULT_STRATEGY, Suggestion, get_strategy
@@ -87,11 +91,14 @@ class LoggedStudy:
     family: str
     task: str
     metric: str
-    direction: str
+    better: str
     label: str
-    n_trials: int
+    trial_count: int
     n_ok: int
     best_score: float | None
+    # True when the same study was already in the history: nothing was written and
+    # study_id is the earlier study's
+    already_logged: bool = False
 
     def to_dict(self) -> dict[str, Any]:
         return dict(self.__dict__)
@@ -118,8 +125,9 @@ def query_fingerprint(data: pd.DataFrame | str | os.PathLike | None, target: str
 
 def study_tables(study_id: str, dataset_id: str, label: str, family: str, fp: Fingerprint,
                  metric: Metric, trials: list[Trial], source: str,
-                 now: datetime) -> dict[str, pa.Table]:
-    """The three one-study tables ``log`` writes: the dataset row, the trials, the study."""
+                 now: datetime, dataset_name: str | None = None) -> dict[str, pa.Table]:
+    """The three one-study tables ``log`` writes: the dataset row, the trials, the study
+    (``dataset_name`` names the dataset; default ``label``)."""
     trial_table = pa.Table.from_pylist([
         {"study_id": study_id, "trial_index": i, "config": config_key(t.config),
          "score": t.score, "fit_seconds": t.fit_seconds, "status": t.status,
@@ -127,15 +135,17 @@ def study_tables(study_id: str, dataset_id: str, label: str, family: str, fp: Fi
     ], schema=SCHEMAS["trials"])
     study_table = pa.Table.from_pylist([{
         "study_id": study_id, "dataset_id": dataset_id, "family": family,
-        "task": fp.task, "metric": metric.name, "direction": metric.direction,
-        "label": label, "n_trials": len(trials), "source": source,
+        "task": fp.task, "metric": metric.name, "better": metric.better,
+        "label": label, "trial_count": len(trials), "source": source,
         "tool_version": __version__, "created_at": now,
+        "content_hash": trials_hash(dataset_id, family, fp.task, metric.name, trials),
     }], schema=SCHEMAS["studies"])
     # The dataset row is written by every study, even when the dataset is known: a
     # study then never depends on another study's files, and duplicates cost one
     # small row (readers keep the earliest; compaction drops the rest).
     dataset_table = pa.Table.from_pylist([{
-        "dataset_id": dataset_id, "name": label, "task": fp.task, "target": fp.target,
+        "dataset_id": dataset_id, "name": dataset_name or label, "task": fp.task,
+        "target": fp.target,
         "catalogue_version": fp.catalogue_version,
         "meta_features": json.dumps(fp.to_dict()["meta_features"], sort_keys=True),
         "warnings": json.dumps(fp.warnings), "created_at": now,
@@ -143,9 +153,24 @@ def study_tables(study_id: str, dataset_id: str, label: str, family: str, fp: Fi
     return {"datasets": dataset_table, "trials": trial_table, "studies": study_table}
 
 
+def trials_hash(dataset_id: str, family: str, task: str, metric: str,
+                trials: list[Trial]) -> str:
+    """The content hash of a study about to be logged (see
+    :func:`warmstart.records.study_content_hash`)."""
+    return records.study_content_hash(dataset_id, family, task, metric,
+                                      [config_key(t.config) for t in trials],
+                                      [t.score for t in trials], [t.status for t in trials])
+
+
 def visible_tables(root: Path, family: str | None = None, task: str | None = None,
                    trial_columns: list[str] | None = None) -> dict[str, pa.Table]:
-    """What :meth:`KnowledgeBase.arrow_tables` returns, for the history at ``root``."""
+    """What :meth:`KnowledgeBase.arrow_tables` returns, for the history at ``root``.
+
+    Tombstones are read first (their studies' files are skipped) and again last: a
+    study deleted meanwhile, whose rows a compaction may have dropped while this read
+    the others, is then left out too.
+    """
+    gone = records.deleted_ids(root)
     cond = None
     for col, value in (("family", family), ("task", task)):
         if value is not None:
@@ -153,7 +178,7 @@ def visible_tables(root: Path, family: str | None = None, task: str | None = Non
             cond = term if cond is None else cond & term
     studies = dedupe(read_dir(root / "studies", SCHEMAS["studies"], filter=cond),
                      "studies")
-    ids = set(studies.column("study_id").to_pylist())
+    ids = set(studies.column("study_id").to_pylist()) - gone
 
     def committed(files: list[Path]) -> list[Path]:
         return [f for f in files if (p := parse_log_name(f)) is None or p[0] in ids]
@@ -165,8 +190,8 @@ def visible_tables(root: Path, family: str | None = None, task: str | None = Non
     ds_ids = pa.array(sorted(set(studies.column("dataset_id").to_pylist())), pa.string())
     datasets = read_dir(root / "datasets", SCHEMAS["datasets"],
                         filter=pads.field("dataset_id").isin(ds_ids), select=committed)
-    return {"datasets": dedupe(datasets, "datasets"), "studies": studies,
-            "trials": trials}
+    out = {"datasets": dedupe(datasets, "datasets"), "studies": studies, "trials": trials}
+    return records.without_deleted(out, gone | records.deleted_ids(root))
 
 
 def write_study(root: Path, fname: str, tables: dict[str, pa.Table]) -> None:
@@ -182,31 +207,87 @@ def write_study(root: Path, fname: str, tables: dict[str, pa.Table]) -> None:
         raise BadInputError(f"history {root} is read-only (permission denied)") from None
 
 
-def dataset_known(root: Path, dataset_id: str) -> bool:
-    """Whether a committed study already refers to ``dataset_id``.
+def dataset_state(root: Path, dataset_id: str, digest: str) -> tuple[str | None, str | None]:
+    """``(name, earlier)``: the name of ``dataset_id`` when a visible study refers to it
+    (else None), and the id of a visible study of it whose content hash is ``digest``
+    (else None).
 
-    Files written by ``log`` carry the dataset id in their name, so only the few
-    merged/imported study files need reading.
+    Files written by ``log`` carry the dataset id in their name, so only that dataset's
+    files and the few merged or imported ones are read.
     """
-    studies_dir = root / "studies"
-    if any(p is not None and p[1] == dataset_id
-           for p in map(parse_log_name, visible_files(studies_dir))):
-        return True
-    found = read_dir(studies_dir, SCHEMAS["studies"], columns=["dataset_id"],
-                     filter=pads.field("dataset_id") == dataset_id,
-                     select=lambda fs: [f for f in fs if parse_log_name(f) is None])
-    return found.num_rows > 0
+    def of_dataset(files: list[Path]) -> list[Path]:
+        return [f for f in files if (p := parse_log_name(f)) is None or p[1] == dataset_id]
+
+    here = pads.field("dataset_id") == dataset_id
+    found = read_dir(root / "studies", SCHEMAS["studies"], columns=["study_id", "content_hash"],
+                     filter=here, select=of_dataset).to_pandas()
+    found = found[~found["study_id"].isin(records.deleted_ids(root))]
+    if found.empty:
+        return None, None
+    ids = set(found["study_id"])
+    same = sorted(found.loc[found["content_hash"] == digest, "study_id"])
+    rows = read_dir(root / "datasets", SCHEMAS["datasets"], filter=here, select=lambda fs: [
+        f for f in of_dataset(fs) if (p := parse_log_name(f)) is None or p[0] in ids])
+    rows = dedupe(rows, "datasets")
+    return (rows.column("name")[0].as_py() if rows.num_rows else None,
+            same[0] if same else None)
 
 
 def check_writable(root: Path) -> None:
     """Refuse (:class:`BadInputError`) a history whose table directories are missing or
     read-only, before anything is written."""
-    for table in SCHEMAS:
+    for table in TABLE_DIRS:
         d = root / table
+        if table == DELETIONS and not d.is_dir() and root.is_dir():
+            # empty until a first deletion, so a copy that keeps no empty folders (a git
+            # checkout, some sync tools) lacks it: made here, readers need not have it
+            with contextlib.suppress(OSError):
+                d.mkdir()
         if not d.is_dir():
             raise BadInputError(f"history {root} is missing its {table}/ directory")
         if not os.access(d, os.W_OK | os.X_OK):
             raise BadInputError(f"history {root} is read-only ({d} is not writable)")
+
+
+def without_failed_studies(tables: dict[str, pa.Table]) -> dict[str, pa.Table]:
+    """``tables`` without the studies that have trials but none that succeeded (status
+    ``ok`` with a finite score), their trials, and the datasets only they refer to.
+
+    Such a study is logged and kept (``kb check`` notes it), but it has nothing to
+    teach: every reader that answers questions (``suggest``, ``backtest``, ``similar``,
+    the service) sees the history through this rule. A history without a failed trial
+    costs one pass over the status column (5 ms a million trials), one with failed
+    trials a grouping by study (50 ms a million trials).
+    """
+    trials, studies = tables["trials"], tables["studies"]
+    good = pc.fill_null(pc.and_(pc.equal(trials["status"], "ok"),
+                                pc.is_finite(trials["score"])), False)
+    bad = pc.invert(good)
+    if not pc.any(bad).as_py():
+        return tables
+    ids = trials["study_id"]
+    per = pa.table({"study_id": ids, "good": good}).group_by("study_id").aggregate(
+        [("good", "any")])
+    failed = per["study_id"].filter(pc.invert(per["good_any"]))
+    if len(failed) == 0:
+        return tables
+    studies = studies.filter(pc.invert(pc.is_in(studies["study_id"], value_set=failed)))
+    return {
+        "datasets": tables["datasets"].filter(pc.is_in(
+            tables["datasets"]["dataset_id"], value_set=pc.unique(studies["dataset_id"]))),
+        "studies": studies,
+        "trials": _drop_rows(trials, bad, failed),
+    }
+
+
+def _drop_rows(trials: pa.Table, bad: pa.ChunkedArray, failed: pa.Array) -> pa.Table:
+    """``trials`` without the rows of the ``failed`` studies, which are all ``bad`` rows:
+    only those are looked up."""
+    at = np.flatnonzero(bad.to_numpy(zero_copy_only=False))
+    hit = pc.is_in(trials["study_id"].take(pa.array(at)), value_set=failed)
+    keep = np.ones(trials.num_rows, dtype=bool)
+    keep[at[hit.to_numpy(zero_copy_only=False)]] = False
+    return trials.filter(pa.array(keep))
 
 
 class KnowledgeBase:
@@ -241,7 +322,7 @@ class KnowledgeBase:
             raise BadInputError(f"cannot create a history in {root}: directory is not empty")
         try:
             root.mkdir(parents=True, exist_ok=True)
-            for table in SCHEMAS:
+            for table in TABLE_DIRS:
                 (root / table).mkdir(exist_ok=True)
             write_marker(root)
         except PermissionError:
@@ -250,7 +331,8 @@ class KnowledgeBase:
 
     # -- reading --------------------------------------------------------------------
     def arrow_tables(self, family: str | None = None, task: str | None = None,
-                     trial_columns: list[str] | None = None) -> dict[str, pa.Table]:
+                     trial_columns: list[str] | None = None, *,
+                     include_failed: bool = False) -> dict[str, pa.Table]:
         """The visible rows of the three tables as Arrow tables, sorted and de-duplicated.
 
         Visible means committed: the studies (optionally only those of ``family`` and
@@ -259,17 +341,38 @@ class KnowledgeBase:
         killed or still-running writer left is ever seen. Only the needed files and rows
         are read (Parquet filters), which keeps a question about one family fast on a
         large history.
-        """
-        return visible_tables(self.path, family, task, trial_columns)
 
-    def tables(self, family: str | None = None, task: str | None = None
-               ) -> dict[str, pd.DataFrame]:
+        Studies whose every trial failed are left out (see
+        :func:`without_failed_studies`) unless ``include_failed`` is True, as the
+        maintenance tools (check, info, export, import, compact) ask.
+        """
+        need = None if trial_columns is None or include_failed else list(dict.fromkeys(
+            [*trial_columns, "study_id", "status", "score"]))
+        try:
+            out = visible_tables(self.path, family, task, need or trial_columns)
+        except BadInputError:
+            raise
+        except (TypeError, ValueError, pa.ArrowException):
+            # a Parquet file of another schema reads as rows of nulls, which fail
+            # later: name it, and how to set it aside, rather than the failure
+            maintenance.refuse_foreign_files(self.path, "read")
+            raise
+        if include_failed:
+            return out
+        out = without_failed_studies(out)
+        if trial_columns is not None:
+            out["trials"] = out["trials"].select(trial_columns)
+        return out
+
+    def tables(self, family: str | None = None, task: str | None = None, *,
+               include_failed: bool = False) -> dict[str, pd.DataFrame]:
         """The visible rows of all three tables as DataFrames (see :meth:`arrow_tables`).
 
         Rows are de-duplicated by key and sorted by it, so the result does not depend on
         how the rows are spread over files.
         """
-        return {k: v.to_pandas() for k, v in self.arrow_tables(family, task).items()}
+        return {k: v.to_pandas() for k, v in self.arrow_tables(
+            family, task, include_failed=include_failed).items()}
 
     def fingerprints(self, datasets: pd.DataFrame | None = None) -> dict[str, Fingerprint]:
         """Stored fingerprints by dataset id (of ``datasets``, default every dataset)."""
@@ -298,7 +401,7 @@ class KnowledgeBase:
     # -- writing ----------------------------------------------------------------------
     def log(self, data: pd.DataFrame | str | os.PathLike | None = None, *,
             target: str | None = None, family: str, trials: TrialsInput, metric: str | None = None,
-            direction: str | None = None, name: str | None = None,
+            better: str | None = None, name: str | None = None,
             fingerprint_of: Fingerprint | str | os.PathLike | None = None,
             task: str | None = None, source: str = "log", cluster: Any = None) -> LoggedStudy:
         """Log one finished study.
@@ -318,10 +421,12 @@ class KnowledgeBase:
             what was run is stored as given (see :func:`warmstart.trials.check_trials`).
         metric : str, optional
             scikit-learn scorer name; defaults to balanced accuracy or R².
-        direction : {"maximize", "minimize"}, optional
+        better : {"higher", "lower"}, optional
             Required for a metric scikit-learn does not know.
         name : str, optional
-            A label for the study (and the dataset, when it is new).
+            A label for the study, and the dataset's name: a known dataset given a
+            ``name`` is renamed (its newest name shows everywhere); without one it
+            keeps its name. Default: the data file's name.
         fingerprint_of : Fingerprint or path to its JSON, optional
             Use this fingerprint instead of computing one from ``data``.
         task : {"classification", "regression"}, optional
@@ -330,10 +435,13 @@ class KnowledgeBase:
             Fingerprint a path ``data`` on this dask cluster (same result).
 
         Everything is validated before anything is written; on any error nothing is.
+        A study already in the history (same dataset, family, task, metric and set of
+        trials) is not written again: the result has ``already_logged`` set and the
+        earlier study's id.
         """
         fam = get_family(family)
         fp = query_fingerprint(data, target, task, fingerprint_of, cluster=cluster)
-        metric_obj = resolve_metric(metric or DEFAULT_METRIC[fp.task], direction)
+        metric_obj = resolve_metric(metric or DEFAULT_METRIC[fp.task], better)
         checked = check_trials(trials, fam, fp.task, metric_obj)
         if not re.fullmatch(r"[0-9a-f]{64}", fp.dataset_hash):
             raise BadInputError("the fingerprint's dataset_hash is not 64 hex digits")
@@ -341,19 +449,22 @@ class KnowledgeBase:
             raise BadInputError("source must be a non-empty string")
         self._check_writable()
 
-        label = name or (Path(data).stem if isinstance(data, (str, os.PathLike)) else
-                         f"dataset-{fp.dataset_hash[:8]}")
         dataset_id, study_id = fp.dataset_hash[:16], uuid.uuid4().hex
-        is_new = not dataset_known(self.path, dataset_id)
-        write_study(self.path, log_name(study_id, dataset_id), study_tables(
-            study_id, dataset_id, label, fam.name, fp, metric_obj, checked, source,
-            datetime.now(timezone.utc)))
+        known, earlier = dataset_state(self.path, dataset_id, trials_hash(
+            dataset_id, fam.name, fp.task, metric_obj.name, checked))
+        label = name or known or (Path(data).stem if isinstance(data, (str, os.PathLike))
+                                  else f"dataset-{fp.dataset_hash[:8]}")
+        if earlier is None:
+            write_study(self.path, log_name(study_id, dataset_id), study_tables(
+                study_id, dataset_id, label, fam.name, fp, metric_obj, checked, source,
+                datetime.now(timezone.utc), dataset_name=name or known))
         scores = [t.score for t in checked if t.status == OK]
         best = None
         if scores:
-            best = max(scores) if metric_obj.direction == MAXIMIZE else min(scores)
-        return LoggedStudy(study_id, dataset_id, is_new, fam.name, fp.task, metric_obj.name,
-                           metric_obj.direction, label, len(checked), len(scores), best)
+            best = max(scores) if metric_obj.better == HIGHER else min(scores)
+        return LoggedStudy(earlier or study_id, dataset_id, known is None, fam.name, fp.task,
+                           metric_obj.name, metric_obj.better, label, len(checked),
+                           len(scores), best, already_logged=earlier is not None)
 
     def log_search(self, search: Any, X: pd.DataFrame, y: Any, *, name: str | None = None,
                    metric: str | None = None) -> LoggedStudy:
@@ -466,9 +577,25 @@ class KnowledgeBase:
 
     @staticmethod
     def migrate(path: str | os.PathLike | None = None) -> dict[str, Any]:
-        """Convert an older-format history in place. See :func:`warmstart.maintenance.migrate`."""
-        return maintenance.migrate(resolve_path(path))
+        """Convert an older-format history in place. See :func:`warmstart.migrations.migrate`."""
+        return migrations.migrate(resolve_path(path))
+
+    # -- the studies as records (implemented in warmstart.records) --------------------
+    def list_studies(self) -> list[dict[str, Any]]:
+        """The datasets with their studies, best scores, dates and names.
+        See :func:`warmstart.records.list_studies`."""
+        return records.list_studies(self)
+
+    def show(self, ref: str) -> dict[str, Any]:
+        """One study (with its trials) or dataset (with its studies), by id, unique id
+        prefix or name. See :func:`warmstart.records.show`."""
+        return records.show(self, ref)
+
+    def delete(self, ref: str) -> dict[str, Any]:
+        """Delete one study (writes its tombstone; readers skip it from then on).
+        See :func:`warmstart.records.delete`."""
+        return records.delete(self, ref)
 
 
 __all__ = ["DEFAULT_PATH", "ENV_VAR", "FORMAT_VERSION", "KnowledgeBase", "LoggedStudy",
-           "MINIMIZE", "query_fingerprint", "resolve_path"]
+           "HIGHER", "LOWER", "query_fingerprint", "resolve_path"]

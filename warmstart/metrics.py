@@ -1,7 +1,7 @@
-"""Metrics: scikit-learn scorer names, their direction and their range.
+"""Metrics: scikit-learn scorer names, whether higher or lower is better, and their range.
 
 Every scikit-learn scorer is *greater is better* (losses are negated, hence the
-``neg_`` prefix), so a scorer name fixes direction. The range is used to refuse
+``neg_`` prefix), so a scorer name fixes which way is better. The range is used to refuse
 impossible scores when a study is logged.
 """
 
@@ -12,8 +12,9 @@ from dataclasses import dataclass
 from warmstart.errors import BadInputError
 from warmstart.tasks import CLASSIFICATION, REGRESSION
 
-MAXIMIZE = "maximize"
-MINIMIZE = "minimize"
+# Which scores are better, as stored in a study's ``better`` field.
+HIGHER = "higher"
+LOWER = "lower"
 
 DEFAULT_METRIC = {CLASSIFICATION: "balanced_accuracy", REGRESSION: "r2"}
 
@@ -33,7 +34,7 @@ class Metric:
     """A metric: its name, whether higher or lower is better, and its closed range."""
 
     name: str
-    direction: str
+    better: str  # HIGHER or LOWER
     low: float = float("-inf")
     high: float = float("inf")
 
@@ -44,40 +45,40 @@ class Metric:
         return None
 
 
-def resolve_metric(name: str, direction: str | None = None) -> Metric:
+def resolve_metric(name: str, better: str | None = None) -> Metric:
     """Return the :class:`Metric` for ``name``.
 
     Parameters
     ----------
     name : str
-        A scikit-learn scorer name (direction and range known), or any other name
-        together with an explicit ``direction``.
-    direction : {"maximize", "minimize"}, optional
+        A scikit-learn scorer name (which way is better and range known), or any other
+        name together with an explicit ``better``.
+    better : {"higher", "lower"}, optional
         Required for names scikit-learn does not know; must agree with the scorer otherwise.
     """
-    if direction not in (None, MAXIMIZE, MINIMIZE):
-        raise BadInputError(f"direction must be 'maximize' or 'minimize', not {direction!r}")
+    if better not in (None, HIGHER, LOWER):
+        raise BadInputError(f"better must be 'higher' or 'lower', not {better!r}")
     from sklearn.metrics import get_scorer_names  # scikit-learn loads in seconds: only here
 
     if name in get_scorer_names():
-        if direction == MINIMIZE:
+        if better == LOWER:
             raise BadInputError(
                 f"metric {name!r} is a scikit-learn scorer, which is higher-is-better; "
                 "drop --lower-is-better or log the loss under another name"
             )
         if name.startswith("neg_"):
-            return Metric(name, MAXIMIZE, high=0.0)
+            return Metric(name, HIGHER, high=0.0)
         if name.startswith(_UNIT_INTERVAL_PREFIXES) or name == "mutual_info_score":
             low = -1.0 if name in ("adjusted_rand_score",) else 0.0
             high = float("inf") if name == "mutual_info_score" else 1.0
-            return Metric(name, MAXIMIZE, low=low, high=high)
+            return Metric(name, HIGHER, low=low, high=high)
         if name in _AT_MOST_ONE:
             low = -1.0 if name == "matthews_corrcoef" else float("-inf")
-            return Metric(name, MAXIMIZE, low=low, high=1.0)
-        return Metric(name, MAXIMIZE)
-    if direction is None:
+            return Metric(name, HIGHER, low=low, high=1.0)
+        return Metric(name, HIGHER)
+    if better is None:
         raise BadInputError(
-            f"metric {name!r} is not a scikit-learn scorer name; say its direction with "
+            f"metric {name!r} is not a scikit-learn scorer name; say which way is better with "
             "--higher-is-better or --lower-is-better"
         )
-    return Metric(name, direction)
+    return Metric(name, better)

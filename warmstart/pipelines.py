@@ -28,6 +28,9 @@ text, as the fingerprint needs).
 
 from __future__ import annotations
 
+from collections.abc import Mapping
+from typing import Any
+
 import numpy as np
 import pandas as pd
 from sklearn.compose import ColumnTransformer, TransformedTargetRegressor
@@ -148,24 +151,33 @@ def levels_per_column(n_categorical: int) -> int:
     return int(max(3, min(MAX_LEVELS, MAX_ONE_HOT_WIDTH // max(1, n_categorical))))
 
 
-def make_pipeline(family: Family, task: str, config: dict, X: pd.DataFrame,
-                  seed: int | None = 0, roles: dict | None = None) -> Pipeline:
+def make_pipeline(family: Family | str, task: str, config: Mapping[str, Any] | Any,
+                  X: pd.DataFrame, seed: int | None = 0, roles: dict | None = None
+                  ) -> Pipeline:
     """An unfitted pipeline: preprocessing for ``X``'s columns, then the estimator.
+
+    The same pipeline ``tune`` cross-validates, so a suggestion becomes a model with
+    ``make_pipeline(family, task, suggestion.config, X).fit(X, y)``.
 
     Parameters
     ----------
-    family : Family
+    family : Family or str
+        A family or its name (see :func:`warmstart.families`).
     task : {"classification", "regression"}
-    config : dict
-        Hyperparameters of the estimator (validated against the family's space).
+    config : dict, or a Suggestion
+        Keyword arguments of the family's estimator (a suggestion's ``config`` is used).
     X : DataFrame of shape (n_rows, n_columns)
-        The features (only their column types and value counts are used).
+        The features, without the target (only their column types and value counts
+        are used).
     seed : int, optional
         ``random_state`` for seeded estimators.
     roles : dict, optional
         :func:`column_roles` of the table ``X`` comes from (target excluded, same
         columns in the same order); typed from ``X`` itself when not given.
+
+    Raises :class:`BadInputError` for an unknown family, task or estimator keyword.
     """
+    family, config = _check_pipeline_args(family, task, config, X)
     kinds = _roles_by_position(X, roles)
     numeric, categorical = _split(kinds)
     encoding = family.categorical_encoding
@@ -194,6 +206,28 @@ def make_pipeline(family: Family, task: str, config: dict, X: pd.DataFrame,
     if family.scale_target and task == "regression":
         model = TransformedTargetRegressor(regressor=model, transformer=StandardScaler())
     return Pipeline([("prepare", pre), ("model", model)])
+
+
+def _check_pipeline_args(family: Family | str, task: str, config: Any, X: Any
+                         ) -> tuple[Family, dict[str, Any]]:
+    """The family and the configuration as a dict, or :class:`BadInputError`."""
+    from warmstart.families import TASKS, get_family
+
+    family = get_family(family) if isinstance(family, str) else family
+    if task not in TASKS:
+        raise BadInputError(f"task must be one of {', '.join(TASKS)}, not {task!r}")
+    config = getattr(config, "config", config)  # a Suggestion gives its configuration
+    if not isinstance(config, Mapping):
+        raise BadInputError(f"config must be a dict of estimator keywords, not "
+                            f"{type(config).__name__}")
+    known = family.estimator_class(task)().get_params(deep=False)
+    unknown = [k for k in config if k not in known]
+    if unknown:
+        raise BadInputError(f"config has {', '.join(map(repr, unknown))}, which "
+                            f"{family.estimator_class(task).__name__} does not take")
+    if not isinstance(X, pd.DataFrame):
+        raise BadInputError(f"X must be a pandas DataFrame, not {type(X).__name__}")
+    return family, dict(config)
 
 
 def _categorical_block(encoding: str, n_categorical: int) -> Pipeline:

@@ -263,6 +263,12 @@ class NumericParam(Param):
         return 0.0 if hi == lo else (v - lo) / (hi - lo)
 
     def to_unit(self, value: Any) -> list[float]:
+        # A logged value outside the space (0 on a log scale, text such as 'sqrt') is
+        # encoded where the space would hold it: at the nearest bound, else the default.
+        if value is not None and not (type(value) in (int, float)
+                                      and self.low <= value <= self.high):
+            value = self.clip(value)
+            value = self.default if value is UNUSABLE else value
         # "no limit" sits at the top of the range; its own column tells it apart
         cols = [1.0 if value is None else min(1.0, max(0.0, self.unit(value)))]
         if self.allow_none:

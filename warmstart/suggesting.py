@@ -30,7 +30,13 @@ from warmstart.metrics import DEFAULT_METRIC
 from warmstart.prediction_cache import PredictionStore
 from warmstart.similarity import nearest
 from warmstart.spaces import user_space
-from warmstart.strategies import Strategy, SuggestContext, Suggestion, TrialIndex, prepare_trials
+from warmstart.strategies import (
+    Strategy,
+    SuggestContext,
+    Suggestions,
+    TrialIndex,
+    prepare_trials,
+)
 from warmstart.surrogate import SurrogateCache
 
 # With a fit-time cap, strategies are asked for this many times k (the cap removes some).
@@ -123,15 +129,16 @@ def suggestion_context(query: Fingerprint, family: Family, studies: pd.DataFrame
 
 
 def ranked(strategy: Strategy, ctx: SuggestContext, k: int,
-           max_fit_seconds: float | None = None) -> list[Suggestion]:
+           max_fit_seconds: float | None = None) -> Suggestions:
     """The strategy's first ``k`` proposals (those within ``max_fit_seconds`` when
-    given), ranked 1..k; :class:`NothingToSuggestError` when none is left."""
+    given), ranked 1..k, as :class:`~warmstart.strategies.Suggestions`;
+    :class:`NothingToSuggestError` when none is left."""
     want = k if max_fit_seconds is None else CAPPED_OVERSAMPLING * k
     out = strategy.propose(ctx, want)
     if max_fit_seconds is not None:
         out = [s for s in out if s.expected_fit_seconds is None
                or s.expected_fit_seconds <= max_fit_seconds]
-    out = [replace(s, rank=i + 1) for i, s in enumerate(out[:k])]
+    out = Suggestions(replace(s, rank=i + 1) for i, s in enumerate(out[:k]))
     if not out:
         raise NothingToSuggestError("no configuration passes the filters")
     return out
@@ -139,7 +146,7 @@ def ranked(strategy: Strategy, ctx: SuggestContext, k: int,
 
 def suggest(kb: Any, query: Fingerprint, family: Family, strategy: Strategy, *, k: int,
             metric: str | None = None, space: Any = None,
-            max_fit_seconds: float | None = None, seed: int = 0) -> list[Suggestion]:
+            max_fit_seconds: float | None = None, seed: int = 0) -> Suggestions:
     """What :meth:`KnowledgeBase.suggest <warmstart.history.KnowledgeBase.suggest>`
     answers, for a query already fingerprinted and arguments already checked."""
     t = kb.tables(family=family.name, task=query.task)  # reads only this family's rows

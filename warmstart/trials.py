@@ -31,7 +31,6 @@ from warmstart.searches import (
     parse_literal,
     search_table_trials,
 )
-from warmstart.spaces import BOOL, SearchSpace
 
 RESERVED = ("score", "fit_seconds", "status", "error")
 OK, FAILED = "ok", "failed"
@@ -64,81 +63,8 @@ def load_trials(trials: TrialsInput) -> pd.DataFrame:
     return pd.DataFrame(rows, dtype=object)
 
 
-def validate_trials(trials: TrialsInput, space: SearchSpace, metric: Metric) -> list[Trial]:
-    """Check every trial against the family's space and the metric.
-
-    The space-based check that logging used before :func:`check_trials`, which checks
-    with the estimator instead; kept until every caller has moved.
-
-    Empty cells (NaN/None) in a parameter column mean "unset" (the estimator's default,
-    or ``None`` where the parameter allows it). Raises :class:`BadInputError` naming the
-    first problem and its row (1-based, as a spreadsheet shows it).
-    """
-    df = load_trials(trials)
-    if df.shape[0] == 0:
-        raise BadInputError("the trials table has no rows")
-    if "score" not in df.columns:
-        raise BadInputError("the trials table has no 'score' column")
-    if df.columns.duplicated().any():
-        raise BadInputError("the trials table has duplicate column names")
-    params = [c for c in df.columns if c not in RESERVED]
-    for name in params:
-        if name not in space:
-            raise BadInputError(
-                f"trials table has parameter {name!r}, which this family does not declare "
-                f"(declared: {', '.join(space.names)})"
-            )
-    out = []
-    records = df.to_dict(orient="records")
-    for i, rec in enumerate(records, start=1):
-        where = f"trial row {i}"
-        status = _status(rec.get("status"), where)
-        score = _number(rec.get("score"), "score", where)
-        if status == OK:
-            if score is None:
-                raise BadInputError(f"{where}: an 'ok' trial needs a finite numeric score")
-            why = metric.check(score)
-            if why:
-                raise BadInputError(f"{where}: {why}")
-        fit = _number(rec.get("fit_seconds"), "fit_seconds", where)
-        if fit is not None and fit < 0:
-            raise BadInputError(f"{where}: fit_seconds must not be negative ({fit})")
-        error = rec.get("error")
-        error = None if _blank(error) else str(error)
-        config: dict[str, Any] = {}
-        for name in params:
-            value = rec[name]
-            if _blank(value):
-                param = space[name]
-                if param.allow_none or None in param.choices:
-                    config[name] = None
-                continue  # unset: the estimator's default applies
-            config[name] = _from_cell(value, space[name].kind)
-        try:
-            config = space.validate(config)
-        except BadInputError as exc:
-            raise BadInputError(f"{where}: {exc}") from None
-        out.append(Trial(config, score, fit, status, error))
-    return out
-
-
 def _blank(value: Any) -> bool:
     return value is None or (isinstance(value, float) and math.isnan(value)) or value is pd.NA
-
-
-def _status(value: Any, where: str) -> str:
-    if _blank(value):
-        return OK
-    if value not in (OK, FAILED):
-        raise BadInputError(f"{where}: status must be 'ok' or 'failed', not {value!r}")
-    return value
-
-
-def _number(value: Any, column: str, where: str) -> float | None:
-    number, why = _to_number(value, column)
-    if why:
-        raise BadInputError(f"{where}: {why}")
-    return number
 
 
 def _to_number(value: Any, column: str) -> tuple[float | None, str | None]:
@@ -154,17 +80,6 @@ def _to_number(value: Any, column: str) -> tuple[float | None, str | None]:
     if not math.isfinite(value):
         return None, f"{column} must be finite, not {value}"
     return value, None
-
-
-def _from_cell(value: Any, kind: str) -> Any:
-    """Undo what CSV does to values: numpy scalars, 'True'/'False' strings."""
-    if isinstance(value, np.generic):
-        value = value.item()
-    if kind == BOOL and isinstance(value, str) and value.strip().lower() in ("true", "false"):
-        return value.strip().lower() == "true"
-    if kind == BOOL and isinstance(value, (int, float)) and value in (0, 1):
-        return bool(value)
-    return value
 
 
 # -- checking trials with the estimator's own parameter validation -------------------

@@ -111,6 +111,9 @@ class TuneResult:
     notes: list[str] = field(default_factory=list)
     logged: LoggedStudy | None = None
     seconds: float = 0.0
+    # the best configuration's pipeline fitted on every labelled row (refit=True); kept
+    # in memory only, never written (nothing is pickled)
+    model: Any = field(default=None, repr=False)
 
     @property
     def interrupted(self) -> bool:
@@ -162,7 +165,7 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
          space: SearchSpace | str | os.PathLike | list | None = None,
          defaults_first: bool = True, strategy: str | None = None,
          progress: Callable[[TuneTrial], None] | None = None,
-         cluster: Any = None) -> TuneResult:
+         cluster: Any = None, refit: bool = True) -> TuneResult:
     """Run a warm-started tuning study of ``family`` on ``data`` and log it.
 
     Parameters
@@ -229,12 +232,18 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         fold; ``jobs`` is then unused. Trials still run in order, so the trials and their
         scores are the same as without a cluster. A fold whose worker keeps dying makes
         a failed trial (its error says so). A path DATA is fingerprinted on the cluster.
+    refit : bool
+        Fit the best trial's pipeline (:func:`warmstart.make_pipeline`, with ``seed``) on
+        every labelled row, in this process, into ``result.model``. Not done when no
+        trial succeeded or the study was interrupted.
 
     Returns
     -------
     TuneResult
         ``stopped`` is ``"budget"``, ``"time limit"`` or ``"interrupted"`` (Ctrl-C:
         the finished trials are still logged, the caller decides how to exit).
+        ``model`` is the refitted pipeline (None without ``refit``); it is held in
+        memory only.
     """
     kb = _open_history(kb, log)
     fam = _check_arguments(family, budget, cv, jobs, time_limit, search, warm_start)
@@ -258,11 +267,15 @@ def tune(data: pd.DataFrame | str | os.PathLike, *, target: str, family: str, bu
         proposer = _Proposer(space, search, queue, queue_origin, seed)
         _run_trials(result, proposer, folds, time_limit, progress)
     if log and kb is not None and result.trials:
-        label = name or (Path(data).stem if isinstance(data, (str, os.PathLike)) else None)
-        result.logged = _log_study(kb, result, df, fp, label)
+        # a path goes along only so that a new dataset is named after its file; a known
+        # one keeps its name unless ``name`` renames it
+        named_by = data if isinstance(data, (str, os.PathLike)) else df
+        result.logged = _log_study(kb, result, named_by, fp, name)
     if out is not None and result.best is not None:
         write_bytes_atomic(json.dumps(result.best_config(), indent=2).encode() + b"\n",
                            Path(out))
+    if refit and result.best is not None and not result.interrupted:  # after the log
+        result.model = _refit(folds, result.best.config, result.notes)
     return result
 
 
@@ -519,9 +532,24 @@ def _cross_validate(folds: _Folds, pipe: Any) -> dict[str, Any]:
                               scoring=folds.scoring, n_jobs=folds.jobs, error_score="raise")
 
 
+def _refit(folds: _Folds, config: dict[str, Any], notes: list[str]) -> Any:
+    """The configuration's pipeline fitted on every labelled row, as a trial fits it;
+    None (with a note) when that fit fails."""
+    from warmstart.pipelines import make_pipeline
+
+    try:
+        pipe = make_pipeline(folds.family, folds.task, config, folds.X, seed=folds.seed)
+        with threadpool_limits(1), warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # as in the trials: convergence chatter
+            return pipe.fit(folds.X, folds.y)
+    except Exception as exc:  # the study is logged already; say why there is no model
+        notes.append(f"refit on all rows failed: {type(exc).__name__}: {exc}"[:500])
+        return None
+
+
 # -- logging ------------------------------------------------------------------------------
-def _log_study(kb: KnowledgeBase, result: TuneResult, df: pd.DataFrame, fp: Fingerprint,
-               label: str | None) -> LoggedStudy:
+def _log_study(kb: KnowledgeBase, result: TuneResult, df: pd.DataFrame | str | os.PathLike,
+               fp: Fingerprint, label: str | None) -> LoggedStudy:
     """Log the finished trials as one study (``source="tune"``)."""
     rows = [{**t.config, "score": t.score, "fit_seconds": t.fit_seconds,
              "status": t.status, "error": t.error} for t in result.trials]

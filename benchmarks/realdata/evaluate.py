@@ -96,8 +96,8 @@ def load_results(refingerprint: bool = False, results: Path | None = None):
     for (family, name, task), g in scores.groupby(["family", "dataset", "task"]):
         sid = f"{family}:{name}"
         studies.append({"study_id": sid, "dataset_id": _id(name), "family": family,
-                        "task": task, "metric": build.METRIC[task], "direction": "maximize",
-                        "label": name, "n_trials": len(g)})
+                        "task": task, "metric": build.METRIC[task], "better": "higher",
+                        "label": name, "trial_count": len(g)})
         for r in g.itertuples(index=False):
             trials.append({"study_id": sid, "trial_index": int(r.config_index),
                            "config": r.config, "score": r.score,

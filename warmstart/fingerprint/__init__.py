@@ -24,6 +24,7 @@ from warmstart.fingerprint.catalogue import (
     GROUPS,
     MetaFeature,
     catalogue,
+    range_problem,
 )
 from warmstart.fingerprint.profile import (
     TASKS,
@@ -92,7 +93,7 @@ class Fingerprint:
             raise BadInputError("not a warmstart fingerprint (expected the output of "
                                 "'warmstart fingerprint --json')")
         version = d.get("catalogue_version")
-        if version not in KNOWN_CATALOGUE_VERSIONS:
+        if isinstance(version, bool) or version not in KNOWN_CATALOGUE_VERSIONS:
             raise BadInputError(
                 f"fingerprint has unknown catalogue version {version!r}; this warmstart "
                 f"knows versions {list(KNOWN_CATALOGUE_VERSIONS)}"
@@ -113,6 +114,10 @@ class Fingerprint:
         unknown = sorted(set(clean) - set(CATALOGUE)) if version == CATALOGUE_VERSION else []
         if unknown:
             raise BadInputError(f"fingerprint has unknown meta-features: {', '.join(unknown)}")
+        for k in (k for k in CATALOGUE if k in clean):  # catalogue order: rows first
+            why = range_problem(k, clean[k], clean)
+            if why:
+                raise BadInputError(f"fingerprint meta-feature {k!r} {why}")
         h = d.get("dataset_hash")
         if not isinstance(h, str) or len(h) != 64:
             raise BadInputError("fingerprint has no valid dataset_hash")

@@ -19,13 +19,23 @@ information, class complexity), computed on the row sample and, in a table of mo
 ``COLUMN_CAP`` such columns, on a seeded sample of ``COLUMN_CAP`` of them
 (:func:`column_sample`), so their cost is bounded in columns as well as rows.
 
+Each entry's ``value_range`` is written once, as text in interval notation, and is
+parsed when the entry is registered: numbers, ``inf``, the name of another meta-feature
+of the same fingerprint with an optional ``+``/``-`` offset (``"[1, rows]"``,
+``"[0, classes - 1)"``), and unions joined by ``or``. Counts are declared
+``integer=True``. :func:`range_problem` checks a value against both; loading a
+fingerprint from JSON refuses one that fails (:meth:`Fingerprint.from_dict
+<warmstart.fingerprint.Fingerprint.from_dict>`).
+
 ``CATALOGUE_VERSION`` counts changes to the catalogue: bump it whenever a meta-feature
 is added, removed, or changes meaning, and regenerate the shipped demo history.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
+import math
+import re
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 
 import numpy as np
@@ -38,6 +48,79 @@ COLUMN_CAP = 500
 COLUMN_SEED = np.uint64(0x5EED_C0_1D)
 BOTH, CLASSIFICATION, REGRESSION = "both", "classification", "regression"
 SUMMARY_STATS = ("min", "q1", "median", "q3", "max", "mean")
+
+
+# One end of an interval: a number, or (another meta-feature's name, offset).
+Bound = tuple[str | None, float]
+Interval = tuple[Bound, Bound]
+_INTERVAL = re.compile(r"\s*[\[(]\s*([^,]+?)\s*,\s*([^,]+?)\s*[\])]\s*")
+_BOUND = re.compile(r"([a-z][a-z0-9_]*)\s*(?:([+-])\s*([0-9.]+))?")
+# Values computed at an end of their range may be off by rounding: never refuse those.
+RANGE_TOLERANCE = 1e-9
+
+
+def _parse_bound(text: str, where: str) -> Bound:
+    text = text.strip()
+    try:  # "0", "-2", "5000", "inf", "-inf"
+        number = float(text.replace(" ", ""))
+    except ValueError:
+        number = math.nan
+    if not math.isnan(number):
+        return None, number
+    m = _BOUND.fullmatch(text)
+    if m is None or m.group(1) in ("nan", "inf"):
+        raise ValueError(f"range {where!r}: cannot read the bound {text!r}")
+    offset = float(m.group(3) or 0.0)
+    return m.group(1), -offset if m.group(2) == "-" else offset
+
+
+def parse_range(text: str) -> tuple[Interval, ...]:
+    """The intervals of a range text such as ``"[0, 1]"``, ``"[1, rows]"`` or
+    ``"[0, 1] or (-inf, 1]"`` (raises ValueError on anything else).
+
+    Returns
+    -------
+    tuple of ((name or None, offset), (name or None, offset))
+        Low and high end of each interval: a number when name is None, else the named
+        meta-feature's value plus offset.
+    """
+    out = []
+    for part in text.split(" or "):
+        m = _INTERVAL.fullmatch(part)
+        if m is None:
+            raise ValueError(f"range {text!r} is not in interval notation")
+        out.append((_parse_bound(m.group(1), text), _parse_bound(m.group(2), text)))
+    return tuple(out)
+
+
+def _end(bound: Bound, values: Mapping[str, float], default: float) -> float:
+    name, offset = bound
+    if name is None:
+        return offset
+    ref = values.get(name, math.nan)
+    return ref + offset if isinstance(ref, float | int) and math.isfinite(ref) else default
+
+
+def range_problem(name: str, value: float, values: Mapping[str, float]) -> str | None:
+    """Why ``value`` cannot be meta-feature ``name``'s value, or None when it can.
+
+    ``values`` holds the same fingerprint's other values (for ranges such as
+    ``[1, rows]``; an undefined reference leaves that end open). Ends are checked as
+    closed with a relative tolerance of ``RANGE_TOLERANCE``, so a value computed at an
+    end of its range (a rounding away from it) is never refused. NaN (undefined) is
+    always allowed.
+    """
+    mf = CATALOGUE[name]
+    if math.isnan(value):
+        return None
+    if mf.integer and value != math.floor(value):
+        return f"is {value:.10g}, not a whole number (it is a count)"
+    for low, high in mf.bounds:
+        lo, hi = _end(low, values, -math.inf), _end(high, values, math.inf)
+        slack = RANGE_TOLERANCE * max(1.0, abs(value))
+        if lo - slack <= value <= hi + slack:
+            return None
+    return f"is {value:.10g}, outside its range {mf.value_range}"
 
 
 @dataclass(frozen=True)
@@ -64,6 +147,10 @@ class MetaFeature:
         ``func(profile) -> float``.
     basis : {"exact", "sketch", "sample"}
         What the value is computed from (see the module docstring).
+    integer : bool
+        The value is a whole number (a count).
+    bounds : tuple of Interval
+        ``value_range`` parsed (see :func:`parse_range`).
     """
 
     name: str
@@ -75,6 +162,8 @@ class MetaFeature:
     count_like: bool
     func: Callable[[DatasetProfile], float]
     basis: str = "exact"
+    integer: bool = False
+    bounds: tuple[Interval, ...] = ()
 
     def compute(self, profile: DatasetProfile) -> float:
         if self.tasks != BOTH and self.tasks != profile.task:
@@ -89,7 +178,8 @@ class MetaFeature:
     def to_dict(self) -> dict[str, object]:
         return {"name": self.name, "group": self.group, "description": self.description,
                 "method": self.method, "range": self.value_range, "tasks": self.tasks,
-                "count_like": self.count_like, "basis": self.basis}
+                "count_like": self.count_like, "basis": self.basis,
+                "integer": self.integer}
 
 
 CATALOGUE: dict[str, MetaFeature] = {}
@@ -134,8 +224,13 @@ def column_sample(names: list[str], cap: int = COLUMN_CAP) -> np.ndarray:
 
 
 def meta_feature(name: str, group: str, description: str, method: str, value_range: str,
-                 tasks: str = BOTH, count_like: bool = False, basis: str = "exact"):
-    """Register ``func(profile) -> float`` as the meta-feature ``name``."""
+                 tasks: str = BOTH, count_like: bool = False, basis: str = "exact",
+                 integer: bool = False):
+    """Register ``func(profile) -> float`` as the meta-feature ``name``.
+
+    ``value_range`` is parsed here (see :func:`parse_range`): a range the parser cannot
+    read fails at import, not when a fingerprint is checked.
+    """
 
     def register(func: Callable[[DatasetProfile], float]):
         if name in CATALOGUE:
@@ -143,7 +238,8 @@ def meta_feature(name: str, group: str, description: str, method: str, value_ran
         if basis not in BASES:
             raise ValueError(f"meta-feature {name!r} has an unknown basis {basis!r}")
         CATALOGUE[name] = MetaFeature(name, group, description, method, value_range, tasks,
-                                      count_like, func, basis)
+                                      count_like, func, basis, integer,
+                                      parse_range(value_range))
         return func
 
     return register

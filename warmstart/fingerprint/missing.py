@@ -55,7 +55,7 @@ def _patterns(p: DatasetProfile) -> np.ndarray:
               "Number of distinct missingness patterns across rows",
               "distinct rows of the 0/1 missingness matrix (Little & Rubin 2019, ch. 1); "
               "exact up to 4096 patterns, counted in the sample beyond",
-              "[1, rows]", count_like=True, basis="sketch")
+              "[1, rows]", count_like=True, basis="sketch", integer=True)
 def missing_pattern_count(p: DatasetProfile) -> float:
     return float(_patterns(p).size)
 

@@ -9,13 +9,14 @@ SHAPE = group("shape", "Size, shape and column types")
 
 
 @meta_feature("rows", SHAPE, "Number of rows", "count of rows in the table",
-              "[1, inf)", count_like=True)
+              "[1, inf)", count_like=True, integer=True)
 def rows(p: DatasetProfile) -> float:
     return p.n_rows
 
 
 @meta_feature("columns", SHAPE, "Number of feature columns (target excluded)",
-              "count of columns other than the target", "[0, inf)", count_like=True)
+              "count of columns other than the target", "[0, inf)", count_like=True,
+              integer=True)
 def columns(p: DatasetProfile) -> float:
     return p.n_columns
 
@@ -72,6 +73,7 @@ def duplicate_row_fraction(p: DatasetProfile) -> float:
 
 @meta_feature("sample_rows", SHAPE, "Rows in the seeded sample used by sample-based groups",
               "min(rows, SAMPLE_CAP) rows of smallest seeded hash priority (bookkeeping; "
-              "left out of distances)", "[1, 5000]", count_like=True, basis="sample")
+              "left out of distances)", "[1, rows]", count_like=True, basis="sample",
+              integer=True)
 def sample_rows(p: DatasetProfile) -> float:
     return p.sample_rows

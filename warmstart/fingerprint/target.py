@@ -30,7 +30,7 @@ def _shape(p: DatasetProfile) -> tuple[float, float, float]:
 
 
 @meta_feature("classes", TARGET, "Number of classes", "count of distinct target labels",
-              "[2, inf)", CLASSIFICATION, count_like=True)
+              "[2, inf)", CLASSIFICATION, count_like=True, integer=True)
 def classes(p: DatasetProfile) -> float:
     return p.classes
 

@@ -83,7 +83,7 @@ class LogRequest(_Body):
     family: str = Field(min_length=1, max_length=64)
     trials: list[dict[str, Any]] = Field(min_length=1, max_length=100_000)
     metric: str | None = Field(None, max_length=64)
-    direction: Literal["maximize", "minimize"] | None = None
+    better: Literal["higher", "lower"] | None = None
     name: str | None = Field(None, min_length=1, max_length=200)
     task: Task | None = None
     source: str = Field("log", pattern=r"^[a-z][a-z0-9_-]{0,31}$")
@@ -221,7 +221,7 @@ def dataset_detail(state: HistoryState, dataset_id: str, k: int = 5) -> dict[str
 
 
 def _study_dicts(frame) -> list[dict[str, Any]]:
-    cols = ["study_id", "dataset_id", "family", "task", "metric", "direction", "label",
+    cols = ["study_id", "dataset_id", "family", "task", "metric", "better", "label",
             "trials", "ok", "best_score", "source", "created_at"]
     return [{c: r[c] for c in cols} for r in frame.to_dict(orient="records")]
 
@@ -268,7 +268,7 @@ def suggest(body: SuggestRequest, request: Request) -> JSONResponse:
 def log_study(body: LogRequest, request: Request) -> JSONResponse:
     study = _state(request).kb.log(
         fingerprint_of=_fingerprint(body.fingerprint), family=body.family, trials=body.trials,
-        metric=body.metric, direction=body.direction, name=body.name, task=body.task,
+        metric=body.metric, better=body.better, name=body.name, task=body.task,
         source=body.source)
     log.info("logged study %s (%s) for dataset %s", study.study_id, study.family,
              study.dataset_id)

@@ -24,7 +24,7 @@ from warmstart.backtest import DEFAULT_KS, BacktestResult, backtest
 from warmstart.errors import WarmstartError
 from warmstart.fingerprint import Fingerprint
 from warmstart.history import KnowledgeBase
-from warmstart.metrics import MINIMIZE
+from warmstart.metrics import LOWER
 from warmstart.service.maps import TaskMap, similarity_map
 from warmstart.similarity import Neighbour, nearest
 from warmstart.storage import visible_files
@@ -52,9 +52,11 @@ class HistoryState:
         self._running: dict[Any, Future] = {}
 
     def key(self) -> str:
-        """A digest of the committed study files: changes whenever the history does."""
+        """A digest of the committed study and tombstone files: changes whenever the
+        history does."""
         h = hashlib.sha256()
-        for p in visible_files(self.kb.path / "studies"):
+        for p in [*visible_files(self.kb.path / "studies"),
+                  *visible_files(self.kb.path / "deletions")]:
             try:
                 st = p.stat()
             except FileNotFoundError:  # removed by a compaction meanwhile
@@ -120,7 +122,7 @@ class HistoryState:
         studies, trials = t["studies"], t["trials"]
         ok = trials[trials["status"] == "ok"]
         hi, lo = ok.groupby("study_id")["score"].max(), ok.groupby("study_id")["score"].min()
-        best = np.where(studies["direction"] == MINIMIZE, studies["study_id"].map(lo),
+        best = np.where(studies["better"] == LOWER, studies["study_id"].map(lo),
                         studies["study_id"].map(hi))
         counts = trials.groupby("study_id").size()
         return studies.assign(trials=studies["study_id"].map(counts).fillna(0).astype(int),

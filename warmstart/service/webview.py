@@ -224,10 +224,10 @@ def dataset_page(d: dict[str, Any], fp: Fingerprint, studies: Sequence[dict[str,
             f"<code>{escape(d['target'])}</code>, id <code>{escape(d['dataset_id'])}</code>, "
             f"catalogue version {int(d['catalogue_version'])}</p>")
     rows = [[s["label"], link(f"/families/{s['family']}", s["family"]), s["metric"],
-             s["direction"], s["trials"], s["ok"], s["best_score"], s["source"],
+             s["better"], s["trials"], s["ok"], s["best_score"], s["source"],
              s["created_at"]] for s in studies]
     body = (head + section("Warnings", warnings_list(fp.warnings))
-            + section("Studies", table(["study", "family", "metric", "direction", "trials",
+            + section("Studies", table(["study", "family", "metric", "better", "trials",
                                         "ok", "best score", "source", "logged"], rows,
                                        "llllrrr"))
             + section("Nearest datasets", neighbours_table(neighbours))

@@ -12,6 +12,7 @@ from warmstart.strategies.auto import AutoChoice
 from warmstart.strategies.base import (
     Strategy,
     Suggestion,
+    Suggestions,
     canonical_key,
     normalise_scores,
     prepare_trials,
@@ -59,6 +60,7 @@ __all__ = ["DEFAULT_STRATEGY", "STRATEGIES", "AnchoredPortfolio", "AutoChoice",
            "GreedyPortfolio",
            "HedgedPortfolio", "LibraryDefaults",
            "NearestBest", "RandomConfigs", "Strategy", "SuggestContext", "Suggestion",
+           "Suggestions",
            "TrialIndex", "TransferForest", "canonical_key", "get_strategy", "normalise_scores",
            "prepare_trials",
            "user_space"]

@@ -4,7 +4,7 @@ A strategy's input, :class:`~warmstart.strategies.context.SuggestContext`, lives
 :mod:`warmstart.strategies.context`.
 
 Scores are normalised per study by min-max over the study's ``ok`` trials, oriented so
-that 1 is the study's best and 0 its worst whatever the metric's direction; a study
+that 1 is the study's best and 0 its worst whether higher or lower scores are better; a study
 whose trials all scored the same gets 1 for every trial. Min-max (rather than ranks)
 keeps the size of gaps: a configuration that is nearly as good as the best scores
 close to 1 even when many trials sit between them.
@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 
 from warmstart.errors import BadInputError
-from warmstart.metrics import MINIMIZE
+from warmstart.metrics import LOWER
 from warmstart.spaces import SearchSpace, config_key
 from warmstart.values import finite_or_none
 
@@ -40,15 +40,15 @@ NORMALISATIONS = ("minmax", "rank")
 SAME_DATASET_DISTANCE = 1e-9
 
 
-def normalise_scores(scores: np.ndarray, direction: str | np.ndarray, method: str = "minmax",
+def normalise_scores(scores: np.ndarray, better: str | np.ndarray, method: str = "minmax",
                      groups: np.ndarray | None = None) -> np.ndarray:
     """Normalise scores to [0, 1] within each study, 1 = the study's best.
 
     Parameters
     ----------
     scores : ndarray of shape (n_trials,), finite
-    direction : {"maximize", "minimize"} or ndarray of shape (n_trials,) of them
-        The metric's direction, for all trials or per trial.
+    better : {"higher", "lower"} or ndarray of shape (n_trials,) of them
+        Which scores are better, for all trials or per trial.
     method : {"minmax", "rank"}
         ``"minmax"``: ``(s - min) / (max - min)``; ``"rank"``: ``(rank - 1) / (n - 1)``
         with average ranks for ties (1 = best trial), which ignores the size of gaps.
@@ -59,7 +59,7 @@ def normalise_scores(scores: np.ndarray, direction: str | np.ndarray, method: st
     if method not in NORMALISATIONS:
         raise BadInputError(f"unknown normalisation {method!r}")
     s = np.asarray(scores, dtype=float)
-    s = np.where(np.asarray(direction) == MINIMIZE, -s, s)
+    s = np.where(np.asarray(better) == LOWER, -s, s)
     by = pd.Series(s).groupby(np.zeros(s.size) if groups is None else np.asarray(groups),
                               sort=False)
     lo, hi = by.transform("min").to_numpy(), by.transform("max").to_numpy()
@@ -91,6 +91,11 @@ class Suggestion:
     portfolio objective of the suggestions above it (weighted mean over the sources of
     the best normalised score listed so far). ``choice`` is set by ``auto``: the strategy
     it chose, on how many datasets, their mean regrets and the rule.
+
+    ``moved`` says where the configuration differs from the source trial as logged,
+    because it was brought into the active space (see :func:`moved_values`): one
+    ``{"parameter", "from", "to"}`` per value, ``"to"`` None and ``"dropped"`` True for
+    a parameter the space does not search (the estimator's default then applies).
     """
 
     rank: int
@@ -112,16 +117,83 @@ class Suggestion:
     gain: float | None = None
     best_on: tuple[dict[str, Any], ...] = ()
     choice: dict[str, Any] | None = None
+    moved: tuple[dict[str, Any], ...] = ()
 
     def to_dict(self) -> dict[str, Any]:
         d = dict(self.__dict__)
         d["support"] = [dict(s) for s in self.support]
         d["best_on"] = [dict(s) for s in self.best_on]
+        d["moved"] = [dict(m) for m in self.moved]
         d["choice"] = None if self.choice is None else json.loads(json.dumps(self.choice))
         for key in ("distance", "score", "normalised_score", "fit_seconds",
                     "expected_fit_seconds", "expected_normalised", "gain"):
             d[key] = finite_or_none(d[key])
         return d
+
+
+class Suggestions(list):
+    """The ranked suggestions (a list of :class:`Suggestion`, best first), with views for
+    a user's own search."""
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per suggestion (index ``rank``), one flat column per parameter.
+
+        Returns
+        -------
+        DataFrame of shape (n_suggestions, n_parameters)
+            Columns in the order the parameters first appear; a parameter a suggestion
+            leaves out (inactive, or the estimator's default) is missing (NaN) there.
+        """
+        names = list(dict.fromkeys(k for s in self for k in s.config))
+        rows = [[s.config.get(n, np.nan) for n in names] for s in self]
+        frame = pd.DataFrame(rows, columns=names, index=pd.Index([s.rank for s in self],
+                                                                   name="rank"))
+        return frame.infer_objects()
+
+    def to_grid(self, prefix: str = "") -> list[dict[str, list[Any]]]:
+        """The configurations as a ``param_grid`` for scikit-learn's ``GridSearchCV``: one
+        dict per suggestion mapping each parameter to a one-value list, so the search
+        runs exactly these configurations. ``prefix`` names the model's pipeline step
+        (``"model__"``)."""
+        return [{prefix + k: [v] for k, v in s.config.items()} for s in self]
+
+
+def moved_values(given: dict[str, Any], config: dict[str, Any],
+                 defaults: dict[str, Any]) -> tuple[dict[str, Any], ...]:
+    """Where ``config`` (brought into a space) differs from the trial ``given`` as logged.
+
+    Parameters
+    ----------
+    given : dict
+        The logged configuration (out-of-space values, parameters the space does not
+        search and all).
+    config : dict
+        The configuration suggested.
+    defaults : dict
+        The estimator's own defaults: what a parameter missing from ``given`` ran with
+        (scikit-learn's ``early_stopping='auto'`` where the space searches true/false).
+
+    Returns
+    -------
+    tuple of dict
+        ``{"parameter", "from", "to"}`` for each value that changed, in ``config``'s
+        order, then ``{"parameter", "from", "to": None, "dropped": True}`` for each
+        given parameter the configuration leaves out.
+    """
+    out = []
+    for name, value in config.items():
+        before = given.get(name, defaults.get(name, value))
+        if not _same_value(before, value):
+            out.append({"parameter": name, "from": before, "to": value})
+    for name, value in given.items():
+        if name not in config:
+            out.append({"parameter": name, "from": value, "to": None, "dropped": True})
+    return tuple(out)
+
+
+def _same_value(a: Any, b: Any) -> bool:
+    # True == 1 in Python, but a flag and a number are different values here
+    return a == b and isinstance(a, bool) == isinstance(b, bool)
 
 
 def canonical_key(space: SearchSpace, config: dict[str, Any]) -> str:
@@ -160,10 +232,10 @@ def prepare_trials(trials: pd.DataFrame, studies: pd.DataFrame,
     """
     t = trials[(trials["status"] == "ok") & trials["study_id"].isin(studies["study_id"])]
     t = t.dropna(subset=["score"]).reset_index(drop=True)
-    direction = dict(zip(studies["study_id"], studies["direction"]))
+    better = dict(zip(studies["study_id"], studies["better"]))
     if parse_configs:
         t["config"] = [json.loads(c) for c in t["config"]]
     t["normalised"] = normalise_scores(
-        t["score"].to_numpy(dtype=float), t["study_id"].map(direction).to_numpy(),
+        t["score"].to_numpy(dtype=float), t["study_id"].map(better).to_numpy(),
         normalisation, groups=t["study_id"].to_numpy())
     return t

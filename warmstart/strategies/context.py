@@ -26,7 +26,12 @@ from warmstart.fingerprint import Fingerprint
 from warmstart.prediction_cache import fit_identity
 from warmstart.similarity import Neighbour
 from warmstart.spaces import SearchSpace
-from warmstart.strategies.base import SAME_DATASET_DISTANCE, Suggestion, canonical_key
+from warmstart.strategies.base import (
+    SAME_DATASET_DISTANCE,
+    Suggestion,
+    canonical_key,
+    moved_values,
+)
 from warmstart.strategies.trial_index import TrialIndex
 from warmstart.surrogate import StudySurrogate, SurrogateCache, fit_rows, fit_surrogate
 from warmstart.values import finite_or_none
@@ -138,7 +143,12 @@ class SuggestContext:
 
     def _fit(self, study_id: str, kind: str) -> StudySurrogate:
         pos = self._fit_positions(study_id)
-        return fit_surrogate(self.trials.configs_at(pos), self.trials.column("normalised")[pos],
+        # fitted on the trials the space can hold (clipped into it); a value it has no
+        # place for ('sqrt' where the space has fractions) says nothing about the space
+        configs = [self.full_space.clip(c) for c in self.trials.configs_at(pos)]
+        usable = np.array([c is not None for c in configs], dtype=bool)
+        return fit_surrogate([c for c in configs if c is not None],
+                             self.trials.column("normalised")[pos][usable],
                              self.full_space, kind, self.seed)
 
     def predict(self, study_id: str, kind: str, configs: list[dict[str, Any]],
@@ -160,15 +170,25 @@ class SuggestContext:
         """A suggestion whose source is one logged trial (a row of :attr:`trials`)."""
         label, metric = self._study_meta[row["study_id"]]
         fit = row["fit_seconds"]
+        given = row["config"]
+        given = json.loads(given) if isinstance(given, str) else given
         fields: dict[str, Any] = dict(
             rank=0, config=config, strategy=strategy, source_dataset_id=nb.dataset_id,
             source_name=nb.name, study_id=row["study_id"], study_label=label,
             distance=nb.distance, score=float(row["score"]),
             normalised_score=float(row["normalised"]), metric=metric,
             fit_seconds=finite_or_none(fit),
-            expected_fit_seconds=self.expected_seconds(fit, nb.dataset_id))
+            expected_fit_seconds=self.expected_seconds(fit, nb.dataset_id),
+            moved=moved_values(given, config, self.estimator_defaults))
         fields.update(overrides)
         return Suggestion(**fields)
+
+    @cached_property
+    def estimator_defaults(self) -> dict[str, Any]:
+        """The estimator's own defaults (what a logged trial left unset ran with)."""
+        from warmstart.trials import estimator_rules
+
+        return estimator_rules(self.family, self.query.task).defaults
 
     @property
     def query_rows(self) -> float:
