@@ -41,7 +41,7 @@ def _int_list(text: str, what: str) -> list[int]:
 @json_option
 @handle_errors
 def backtest_cmd(family, ks, strategies, metric, random_repeats, seed, plot_file, kb_path,
-                 as_json) -> None:
+                 server, as_json) -> None:
     """Leave-one-dataset-out backtest of the ranking strategies on the history.
 
     Regret 0 = the list found the held-out dataset's best known configuration,
@@ -49,7 +49,7 @@ def backtest_cmd(family, ks, strategies, metric, random_repeats, seed, plot_file
     """
     if plot_file is not None:
         check_plot_output(plot_file)
-    kb = open_history(kb_path)
+    kb = open_history(kb_path, server)
     names = [s.strip() for s in strategies.split(",")] if strategies else None
     result = backtest(kb, family, _int_list(ks, "--ks"), names, metric=metric, seed=seed,
                       random_repeats=random_repeats,

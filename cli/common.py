@@ -26,12 +26,16 @@ from warmstart.tasks import TASKS
 if TYPE_CHECKING:
     from warmstart.fingerprint import Fingerprint
     from warmstart.history import KnowledgeBase
+    from warmstart.service.client import Client
 
 TASK = click.Choice(list(TASKS))
 EXIT_INTERRUPTED = 130  # 128 + SIGINT, what shells report for Ctrl-C
 
 
 EXIT_BAD_INPUT = 2
+# the same names as warmstart.service.client's, which this module must not import
+SERVER_ENV = "WARMSTART_SERVER"
+TOKEN_ENV = "WARMSTART_TOKEN"
 
 
 def os_error_message(exc: OSError) -> str:
@@ -157,7 +161,8 @@ def direction_options(func):
                              "does not know).")(func)
 
 
-def kb_option(func):
+def directory_option(func):
+    """``--kb``: the history's directory, for the commands that work on its files."""
     from warmstart.history import ENV_VAR
 
     return click.option(
@@ -165,6 +170,16 @@ def kb_option(func):
         "--kb", "kb_path", type=click.Path(path_type=str), default=None,
         help=f"History directory or file:// URI [default: ${ENV_VAR}, else "
              "./knowledge_base].")(func)
+
+
+def kb_option(func):
+    """``--kb PATH`` or ``--server URL``: where the history is (see :func:`open_history`)."""
+    func = click.option(
+        "--server", default=None, metavar="URL",
+        help=f"Use the history behind this 'warmstart serve' server instead of a "
+             f"directory [default: ${SERVER_ENV} when no --kb is given]; writes need "
+             f"${TOKEN_ENV}.")(func)
+    return directory_option(func)
 
 
 def cluster_option(func):
@@ -241,8 +256,26 @@ def task_line(fp: Fingerprint, task: str | None, fingerprint_file) -> str:
     return f"task: {fp.task} ({how})"
 
 
-def open_history(kb_path: str | Path | None) -> KnowledgeBase:
-    """The history at --kb, else $WARMSTART_KB, else ./knowledge_base."""
+def open_history(kb_path: str | Path | None, server: str | None = None, *,
+                 must_exist: bool = True) -> KnowledgeBase | Client | Path:
+    """The history a command reads or writes.
+
+    A :class:`~warmstart.service.client.Client` of ``server``, else of
+    ``$WARMSTART_SERVER`` when no ``kb_path`` is given; else the directory at
+    ``kb_path``, ``$WARMSTART_KB`` or ./knowledge_base, opened as a
+    :class:`~warmstart.history.KnowledgeBase` (``must_exist=False``: its resolved path,
+    for a command that opens it itself or may do without). Both is an error.
+    """
+    import os
+
+    if server is None and kb_path is None:  # an explicit --kb wins over the variable
+        server = os.environ.get(SERVER_ENV) or None
+    if server is not None:
+        if kb_path is not None:
+            raise BadInputError("give --kb or --server, not both")
+        from warmstart.service.client import Client  # the HTTP client only when used
+
+        return Client(server)
     from warmstart.history import KnowledgeBase, resolve_path
 
-    return KnowledgeBase(resolve_path(kb_path))
+    return KnowledgeBase(resolve_path(kb_path)) if must_exist else resolve_path(kb_path)

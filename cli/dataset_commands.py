@@ -99,9 +99,9 @@ def _echo_catalogue(as_json: bool) -> None:
 @json_option
 @handle_errors
 def log_cmd(data, target, task, fingerprint_file, family, trials_file, metric, better,
-            name, cluster, kb_path, as_json) -> None:
+            name, cluster, kb_path, server, as_json) -> None:
     """Log a finished study (its trials) into the team history."""
-    kb = open_history(kb_path)
+    kb = open_history(kb_path, server)
     fp = query_fingerprint(data, target, task, fingerprint_file, cluster)
     # DATA goes along so that its file name labels a new dataset, as when the library
     # reads DATA itself (the fingerprint computed here is the one used)
@@ -146,9 +146,10 @@ def _metric_note(study) -> str:
 @kb_option
 @json_option
 @handle_errors
-def similar_cmd(data, target, task, fingerprint_file, k, cluster, kb_path, as_json) -> None:
+def similar_cmd(data, target, task, fingerprint_file, k, cluster, kb_path, server,
+                as_json) -> None:
     """Show the past datasets most similar to DATA, and why."""
-    kb = open_history(kb_path)
+    kb = open_history(kb_path, server)
     fp = query_fingerprint(data, target, task, fingerprint_file, cluster)
     found = kb.similar(target=target, k=k, task=task, fingerprint_of=fp)
     if not found:
@@ -198,11 +199,11 @@ def similar_cmd(data, target, task, fingerprint_file, k, cluster, kb_path, as_js
 @handle_errors
 def suggest_cmd(data, target, task, fingerprint_file, family, k, metric, strategy,
                 space_file, max_fit_seconds, seed, out_format, cluster, kb_path,
-                as_json) -> None:
+                server, as_json) -> None:
     """Suggest starting configurations for FAMILY on DATA."""
     if as_json and out_format not in (None, "json"):
         raise click.UsageError(f"--json and --format {out_format} contradict each other")
-    kb = open_history(kb_path)
+    kb = open_history(kb_path, server)
     fp = query_fingerprint(data, target, task, fingerprint_file, cluster)
     try:
         found = kb.suggest(

@@ -8,7 +8,7 @@ from pathlib import Path
 
 import click
 
-from cli.common import handle_errors, json_option, kb_option, open_history
+from cli.common import directory_option, handle_errors, json_option, kb_option, open_history
 from cli.output import emit_json, plural, table
 from warmstart.history import KnowledgeBase, resolve_path
 
@@ -36,9 +36,9 @@ def kb_init_cmd(path, as_json) -> None:
 @kb_option
 @json_option
 @handle_errors
-def kb_info_cmd(kb_path, as_json) -> None:
+def kb_info_cmd(kb_path, server, as_json) -> None:
     """Counts per family and metric, fingerprints per catalogue version, size on disk."""
-    info = open_history(kb_path).info()
+    info = open_history(kb_path, server).info()
     if as_json:
         emit_json(info)
         return
@@ -68,13 +68,13 @@ def kb_info_cmd(kb_path, as_json) -> None:
                    "writer and are left alone [default: 900].")
 @json_option
 @handle_errors
-def kb_check_cmd(kb_path, repair, grace_seconds, as_json) -> None:
+def kb_check_cmd(kb_path, server, repair, grace_seconds, as_json) -> None:
     """Verify the history's integrity (exit code 1 when a problem remains).
 
     Notes (exit code 0) include studies whose every trial failed: they are kept, and
     suggest, backtest and similar leave them out.
     """
-    report = open_history(kb_path).check(repair=repair, grace_seconds=grace_seconds)
+    report = open_history(kb_path, server).check(repair=repair, grace_seconds=grace_seconds)
     if as_json:
         emit_json(report.to_dict())
     else:
@@ -96,14 +96,14 @@ def kb_check_cmd(kb_path, repair, grace_seconds, as_json) -> None:
 @kb_option
 @json_option
 @handle_errors
-def kb_compact_cmd(kb_path, as_json) -> None:
+def kb_compact_cmd(kb_path, server, as_json) -> None:
     """Merge each table's many small files into one (content unchanged).
 
     One compaction runs at a time: while another holds the history's lock, this one
     says so and exits 0. A lock whose process is gone, or older than an hour, is taken
     over.
     """
-    out = open_history(kb_path).compact()
+    out = open_history(kb_path, server).compact()
     if as_json:
         emit_json(out)
         return
@@ -125,9 +125,9 @@ def kb_compact_cmd(kb_path, as_json) -> None:
 @kb_option
 @json_option
 @handle_errors
-def kb_export_cmd(file, kb_path, as_json) -> None:
+def kb_export_cmd(file, kb_path, server, as_json) -> None:
     """Write the whole history to one portable FILE (a ZIP of three Parquet tables)."""
-    out = open_history(kb_path).export(file)
+    out = open_history(kb_path, server).export(file)
     if as_json:
         emit_json(out)
         return
@@ -136,17 +136,17 @@ def kb_export_cmd(file, kb_path, as_json) -> None:
 
 
 @kb_group.command("import")
-@click.argument("file", type=click.Path(path_type=Path))
+@click.argument("file", type=click.Path(path_type=str))  # str: a URI is named as given
 @kb_option
 @json_option
 @handle_errors
-def kb_import_cmd(file, kb_path, as_json) -> None:
+def kb_import_cmd(file, kb_path, server, as_json) -> None:
     """Merge another team's exported FILE; studies already present are skipped.
 
     The file is checked before anything is written: its tables must have the content
     hash its marker states, and it may hold at most 2 GiB uncompressed.
     """
-    out = open_history(kb_path).import_(file)
+    out = open_history(kb_path, server).import_(file)
     if as_json:
         emit_json(out)
         return
@@ -156,7 +156,7 @@ def kb_import_cmd(file, kb_path, as_json) -> None:
 
 
 @kb_group.command("migrate")
-@kb_option
+@directory_option
 @json_option
 @handle_errors
 def kb_migrate_cmd(kb_path, as_json) -> None:
@@ -188,9 +188,9 @@ _STUDY_HEAD = ["study", "family", "metric", "better", "trials", "ok", "best", "l
 @kb_option
 @json_option
 @handle_errors
-def kb_list_cmd(kb_path, as_json) -> None:
+def kb_list_cmd(kb_path, server, as_json) -> None:
     """The datasets with their studies: ids, family, metric, trials, best score, date."""
-    datasets = open_history(kb_path).list_studies()
+    datasets = open_history(kb_path, server).list_studies()
     if as_json:
         emit_json(datasets)
         return
@@ -209,10 +209,10 @@ def kb_list_cmd(kb_path, as_json) -> None:
 @kb_option
 @json_option
 @handle_errors
-def kb_show_cmd(ref, kb_path, as_json) -> None:
+def kb_show_cmd(ref, kb_path, server, as_json) -> None:
     """One study (its trials) or one dataset (its studies), by id, unique id prefix or
     name."""
-    out = open_history(kb_path).show(ref)
+    out = open_history(kb_path, server).show(ref)
     if as_json:
         emit_json(out)
         return
@@ -238,10 +238,10 @@ def kb_show_cmd(ref, kb_path, as_json) -> None:
 @kb_option
 @json_option
 @handle_errors
-def kb_delete_cmd(ref, kb_path, as_json) -> None:
+def kb_delete_cmd(ref, kb_path, server, as_json) -> None:
     """Delete one STUDY (id, unique id prefix or label): every reader skips it from now
     on, and 'kb compact' drops its rows."""
-    out = open_history(kb_path).delete(ref)
+    out = open_history(kb_path, server).delete(ref)
     if as_json:
         emit_json(out)
         return

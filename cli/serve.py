@@ -13,11 +13,19 @@ from pathlib import Path
 
 import click
 
-from cli.common import data_options, dataset_input, handle_errors, json_option
+from cli.common import (
+    data_options,
+    dataset_input,
+    directory_option,
+    handle_errors,
+    json_option,
+    kb_option,
+    open_history,
+)
 from cli.output import emit_json, fmt, table
 from warmstart.errors import BadInputError
-from warmstart.history import ENV_VAR, resolve_path
-from warmstart.service.client import SERVER_ENV, TOKEN_ENV, connect, query_fingerprint
+from warmstart.history import resolve_path
+from warmstart.service.client import TOKEN_ENV, query_fingerprint
 from warmstart.service.security import (
     DEFAULT_MAX_BODY_BYTES,
     check_token,
@@ -26,14 +34,6 @@ from warmstart.service.security import (
 )
 
 READ_TOKEN_ENV = "WARMSTART_READ_TOKEN"
-
-
-def _history_options(func):
-    func = click.option("--server", default=None, metavar="URL",
-                        help=f"Ask this warmstart server instead [default: ${SERVER_ENV}].")(func)
-    return click.option("--kb", "kb_path", type=click.Path(path_type=Path), default=None,
-                        help=f"History directory [default: ${ENV_VAR}, else "
-                             "./knowledge_base].")(func)
 
 
 def _tokens(token_file: Path | None, read_token_file_: Path | None) -> tuple:
@@ -46,8 +46,7 @@ def _tokens(token_file: Path | None, read_token_file_: Path | None) -> tuple:
 
 # -- serve ----------------------------------------------------------------------------------
 @click.command("serve")
-@click.option("--kb", "kb_path", type=click.Path(path_type=Path), default=None,
-              help=f"History directory [default: ${ENV_VAR}, else ./knowledge_base].")
+@directory_option
 @click.option("--host", default="127.0.0.1", show_default=True,
               help="Address to listen on (loopback unless you say otherwise).")
 @click.option("--port", default=8765, show_default=True, type=click.IntRange(0, 65535))
@@ -89,14 +88,14 @@ def serve_cmd(kb_path, host, port, token_file, read_token_file, max_body_bytes,
 @click.option("--out", "-o", required=True, type=click.Path(path_type=Path),
               help="Picture to write: .svg or .png.")
 @data_options
-@_history_options
+@kb_option
 @json_option
 @handle_errors
 def map_cmd(out, data, target, task, fingerprint_file, kb_path, server, as_json) -> None:
     """Draw the history's datasets by meta-feature distance; optionally place DATA."""
     from warmstart.service.maps import map as draw_map
 
-    history = connect(kb_path, server)
+    history = open_history(kb_path, server)
     query = None
     if data is not None or fingerprint_file is not None:  # a dataset to place
         query = query_fingerprint(dataset_input(data, target, fingerprint_file), target,
@@ -124,7 +123,7 @@ def map_cmd(out, data, target, task, fingerprint_file, kb_path, server, as_json)
                    "history has studies of for the task].")
 @click.option("-k", default=5, show_default=True, type=click.IntRange(min=1),
               help="Neighbours shown and suggestions per family.")
-@_history_options
+@kb_option
 @json_option
 @handle_errors
 def report_cmd(data, target, task, fingerprint_file, out, family_names, k, kb_path, server,
@@ -133,7 +132,7 @@ def report_cmd(data, target, task, fingerprint_file, out, family_names, k, kb_pa
     from warmstart.service.report import report
 
     info = report(dataset_input(data, target, fingerprint_file), target, out,
-                  history=connect(kb_path, server), families=list(family_names) or None,
+                  history=open_history(kb_path, server), families=list(family_names) or None,
                   k=k, task=task, fingerprint_of=fingerprint_file)
     if as_json:
         emit_json(info)

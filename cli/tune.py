@@ -16,10 +16,10 @@ from cli.common import (
     handle_errors,
     json_option,
     kb_option,
+    open_history,
 )
 from cli.output import emit_json, fmt, table
 from cli.progress import PROGRESS_ENV, TrialProgressBar
-from warmstart.history import resolve_path
 from warmstart.tune import GP_EI, SEARCHES, TuneResult, tune
 
 
@@ -64,14 +64,14 @@ from warmstart.tune import GP_EI, SEARCHES, TuneResult, tune
 @handle_errors
 def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, search,
              warm_start, strategy, space_file, max_fit_seconds, no_log, out, name, task,
-             progress, cluster, kb_path, as_json) -> None:
+             progress, cluster, kb_path, server, as_json) -> None:
     """Tune FAMILY on DATA: warm-start suggestions first, then Bayesian optimisation."""
-    path = resolve_path(kb_path)
+    history = open_history(kb_path, server, must_exist=False)  # a path or a Client
     bar = TrialProgressBar(budget, stream=sys.stderr, enabled=progress)
     try:
         # without --no-log a missing history is an error; with it, a cold start
         result = tune(data, target=target, family=family, budget=budget, metric=metric, cv=cv,
-                      seed=seed, jobs=jobs, time_limit=time_limit, search=search, kb=path,
+                      seed=seed, jobs=jobs, time_limit=time_limit, search=search, kb=history,
                       log=not no_log, task=task, out=out, name=name, warm_start=warm_start,
                       space=space_file, strategy=strategy, progress=bar,
                       max_fit_seconds=max_fit_seconds, cluster=cluster,
@@ -81,7 +81,7 @@ def tune_cmd(data, target, family, budget, metric, cv, seed, jobs, time_limit, s
     if as_json:
         emit_json(result.to_dict())
     else:
-        _echo_result(result, path, out)
+        _echo_result(result, getattr(history, "path", history), out)
     if result.interrupted:
         click.echo("interrupted: the finished trials were kept", err=True)
         sys.exit(EXIT_INTERRUPTED)

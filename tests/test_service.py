@@ -257,6 +257,10 @@ def test_writes_without_or_with_wrong_token_are_refused(server, history, query):
     with pytest.raises(NotAuthorisedError):
         Client(server, token="y" * 32)._check_writable()
     Client(server, token=TOKEN)._check_writable()  # the right token: no error
+    # every DELETE is a write: refused without the right token before any route runs
+    sid = KnowledgeBase(history).tables()["studies"]["study_id"].iloc[0]
+    for token in (None, "x" * 40):
+        assert call(server + f"/api/studies/{sid}", "DELETE", token=token)[0] == 401
     assert dir_digest(history) == before
 
 

@@ -59,6 +59,7 @@ import pyarrow.parquet as pq
 
 from warmstart.errors import BadInputError
 from warmstart.families import FAMILIES
+from warmstart.filesystems import history_location
 from warmstart.fingerprint import KNOWN_CATALOGUE_VERSIONS
 from warmstart.layout import (
     DELETION_SCHEMA,
@@ -828,6 +829,11 @@ def read_export(file: str | os.PathLike, max_bytes: int = MAX_IMPORT_BYTES
     At most ``max_bytes`` are read, uncompressed (see :func:`_export_members`), and the
     tables must have the content hash the marker states.
     """
+    if isinstance(file, str) and "://" in file:  # a Path would fold https:// into https:/
+        if not file.lower().startswith("file://"):
+            raise BadInputError(f"cannot import {file}: kb import reads a local file (a path "
+                                "or a file:// URI); download it first")
+        file = history_location(file)
     src = Path(file)
     if not src.is_file():
         raise BadInputError(f"export file not found: {src}")

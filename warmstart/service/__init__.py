@@ -8,7 +8,7 @@
 - :func:`warmstart.service.report.report`: one self-contained HTML report of a dataset.
 """
 
-from warmstart.service.client import Client, connect
+from warmstart.service.client import Client
 from warmstart.service.errors import NotAuthorisedError, ServiceUnavailableError
 
-__all__ = ["Client", "NotAuthorisedError", "ServiceUnavailableError", "connect"]
+__all__ = ["Client", "NotAuthorisedError", "ServiceUnavailableError"]

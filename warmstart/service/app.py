@@ -211,7 +211,7 @@ def dataset_detail(state: HistoryState, dataset_id: str, k: int = 5) -> dict[str
     if found.empty:
         raise HTTPException(404, f"no dataset {dataset_id!r} in the history")
     fp = state.fingerprints()[dataset_id]
-    near = [n for n in state.kb.similar(fingerprint_of=fp, k=k + 1)
+    near = [n for n in state.similar(fp, k + 1)
             if n.dataset_id != dataset_id][:k]
     studies = state.study_rows()
     own = studies[studies["dataset_id"] == dataset_id].sort_values("created_at")
@@ -253,7 +253,7 @@ def fingerprints(request: Request) -> JSONResponse:
 
 
 def similar(body: SimilarRequest, request: Request) -> JSONResponse:
-    found = _state(request).kb.similar(fingerprint_of=_fingerprint(body.fingerprint), k=body.k)
+    found = _state(request).similar(_fingerprint(body.fingerprint), body.k)
     return _json([n.to_dict() for n in found])
 
 

@@ -1,6 +1,6 @@
 """Who may read and write through the service, and how much they may send.
 
-- Writes (logging a study, repairing the history) need the write token as
+- Writes (logging or deleting a study, repairing the history) need the write token as
   ``Authorization: Bearer <token>``; a server started without one takes no writes.
 - With a read token every other route except ``/health`` and ``/openapi.json`` needs
   it (or the write token); browsers may send it as the password of HTTP Basic
@@ -163,7 +163,7 @@ class Guard:
         given = _presented(headers)
         challenge = [(b"www-authenticate", b'Bearer realm="warmstart"' if
                       path.startswith("/api/") else b'Basic realm="warmstart", charset="UTF-8"')]
-        if (method, path) in WRITE_ROUTES:
+        if (method, path) in WRITE_ROUTES or method == "DELETE":  # every DELETE writes
             if self.token is None:
                 return (403, {"error": "this server takes no writes: it was started "
                               "without a write token", "kind": wire.WRITES_DISABLED}, [])

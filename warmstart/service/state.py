@@ -2,9 +2,10 @@
 
 Derived results (the tables, the fingerprints, the map, backtests) are cached under a
 key made of the committed study files' names, sizes and modification times: any new
-study, import or compaction changes it, and the cache starts afresh. Questions asked
-through the API (``similar``, ``suggest``, ``log``...) go to the KnowledgeBase itself,
-so they answer exactly as the directory would.
+study, import or compaction changes it, and the cache starts afresh. ``similar`` is
+answered from the cached tables with the library's own function; the other questions
+(``suggest``, ``log``...) go to the KnowledgeBase itself, so all answer exactly as the
+directory would.
 """
 
 from __future__ import annotations
@@ -25,6 +26,7 @@ from warmstart.fingerprint import Fingerprint
 from warmstart.history import KnowledgeBase
 from warmstart.metrics import LOWER
 from warmstart.service.maps import TaskMap, similarity_map
+from warmstart.similarity import Neighbour, nearest
 from warmstart.storage import visible_files
 
 log = logging.getLogger("warmstart.service")
@@ -63,17 +65,28 @@ class HistoryState:
         return h.hexdigest()[:16]
 
     def cached(self, name: Any, compute: Callable[[], Any]) -> Any:
-        """``compute()``'s value for the history as it is now, computed once."""
+        """``compute()``'s value for the history as it is now, computed once: requests
+        arriving while it is being computed wait for that one instead of starting their
+        own (a busy server would otherwise read the whole history once per request)."""
         key = self.key()
         with self._lock:
             if key != self._key:
                 self._key, self._cache = key, {}
-            if name in self._cache:
-                return self._cache[name]
-        value = compute()
-        with self._lock:
-            if self._key == key:
-                self._cache[name] = value
+            pending = self._cache.get(name)
+            mine = pending is None
+            if mine:
+                pending = self._cache[name] = Future()
+        if not mine:
+            return pending.result()
+        try:
+            value = compute()
+        except BaseException as exc:
+            with self._lock:  # a later request tries again
+                if self._cache.get(name) is pending:
+                    del self._cache[name]
+            pending.set_exception(exc)
+            raise
+        pending.set_result(value)
         return value
 
     # -- derived results ------------------------------------------------------------------
@@ -83,6 +96,15 @@ class HistoryState:
     def fingerprints(self) -> dict[str, Fingerprint]:
         return self.cached("fingerprints",
                            lambda: self.kb.fingerprints(self.tables()["datasets"]))
+
+    def similar(self, query: Fingerprint, k: int) -> list[Neighbour]:
+        """:meth:`KnowledgeBase.similar` of ``query`` on the cached tables and fingerprints
+        (the same neighbours: the same datasets, in the same order, to the same function)."""
+        datasets = self.tables()["datasets"]
+        same_task = datasets[datasets["task"] == query.task]
+        fps = self.fingerprints()
+        return nearest(query, {i: fps[i] for i in same_task["dataset_id"]},
+                       dict(zip(same_task["dataset_id"], same_task["name"])), k=k)
 
     def names(self) -> dict[str, str]:
         d = self.tables()["datasets"]
