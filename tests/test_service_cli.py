@@ -39,6 +39,8 @@ DATA = [str(EXAMPLE), "--target", "churned"]
 READS = [
     (["kb", "info"], ()),
     (["kb", "check"], ()),
+    (["kb", "list"], ()),
+    (["kb", "show", "quillmarsh-basket-size"], ()),  # a dataset of the demo history, by name
     (["similar", *DATA, "-k", "4"], ()),
     (["suggest", *DATA, "--family", "hist_gradient_boosting", "-k", "4"], ()),
     (["suggest", *DATA, "--family", "knn", "-k", "3", "--strategy", "nearest-best"], ()),
@@ -109,9 +111,9 @@ def test_writes_give_the_same_json_both_ways(copies):
     logged = [answer([*log, "--kb", str(direct)]), answer([*log, "--server", url], token)]
     assert without(logged[0], NEW_STUDY) == without(logged[1], NEW_STUDY)
     assert logged[1]["trial_count"] == len(pd.read_csv(TRIALS))  # reference: the trials file
-    # --name given: without it the client labels a known dataset by the file's name, where
-    # the directory keeps the dataset's name (known difference, see the branch's report)
-    tune = ["tune", *DATA, "--family", "knn", "--budget", "2", "--cv", "2", "--name", "tuned"]
+    # no --name: a known dataset keeps its name both ways (the client sends the file's
+    # name only as the label of a new dataset)
+    tune = ["tune", *DATA, "--family", "knn", "--budget", "2", "--cv", "2"]
     tuned = [answer([*tune, "--kb", str(direct)]), answer([*tune, "--server", url], token)]
     # fit times and the run's wall time are measured, not computed
     timing = ("seconds", "fit_seconds", "cv_seconds", *NEW_STUDY)
@@ -126,6 +128,18 @@ def test_writes_give_the_same_json_both_ways(copies):
     checks = [answer(["kb", "check", "--kb", str(direct)]),
               answer(["kb", "check", "--server", url])]
     assert without(checks[0], disk) == without(checks[1], disk) and checks[1]["ok"]
+    # deleting the logged study: refused without the token, then the same answer both ways
+    ref = [logged[0]["study_id"], logged[1]["study_id"]]
+    code, _, err = run(["kb", "delete", ref[1], "--server", url, "--json"])
+    assert code == 2 and "WARMSTART_TOKEN" in err and err.count("\n") == 1
+    assert KnowledgeBase(served).info()["studies"] == before["studies"] + 2
+    gone = [answer(["kb", "delete", ref[0], "--kb", str(direct)]),
+            answer(["kb", "delete", ref[1], "--server", url], token)]
+    assert without(gone[0], NEW_STUDY) == without(gone[1], NEW_STUDY)
+    listed = [answer(["kb", "list", "--kb", str(direct)]),
+              answer(["kb", "list", "--server", url])]
+    assert without(listed[0], NEW_STUDY) == without(listed[1], NEW_STUDY)
+    assert KnowledgeBase(served).info()["studies"] == before["studies"] + 1
 
 
 def test_network_errors_are_one_line(copies):

@@ -403,7 +403,8 @@ class KnowledgeBase:
             target: str | None = None, family: str, trials: TrialsInput, metric: str | None = None,
             better: str | None = None, name: str | None = None,
             fingerprint_of: Fingerprint | str | os.PathLike | None = None,
-            task: str | None = None, source: str = "log", cluster: Any = None) -> LoggedStudy:
+            task: str | None = None, source: str = "log", cluster: Any = None,
+            file_name: str | None = None) -> LoggedStudy:
         """Log one finished study.
 
         Parameters
@@ -427,6 +428,9 @@ class KnowledgeBase:
             A label for the study, and the dataset's name: a known dataset given a
             ``name`` is renamed (its newest name shows everywhere); without one it
             keeps its name. Default: the data file's name.
+        file_name : str, optional
+            The data file's name when ``data`` is not given here (the service's clients
+            fingerprint locally): labels a new dataset as a path ``data`` would.
         fingerprint_of : Fingerprint or path to its JSON, optional
             Use this fingerprint instead of computing one from ``data``.
         task : {"classification", "regression"}, optional
@@ -452,8 +456,9 @@ class KnowledgeBase:
         dataset_id, study_id = fp.dataset_hash[:16], uuid.uuid4().hex
         known, earlier = dataset_state(self.path, dataset_id, trials_hash(
             dataset_id, fam.name, fp.task, metric_obj.name, checked))
-        label = name or known or (Path(data).stem if isinstance(data, (str, os.PathLike))
-                                  else f"dataset-{fp.dataset_hash[:8]}")
+        label = name or known or file_name or (
+            Path(data).stem if isinstance(data, (str, os.PathLike))
+            else f"dataset-{fp.dataset_hash[:8]}")
         if earlier is None:
             write_study(self.path, log_name(study_id, dataset_id), study_tables(
                 study_id, dataset_id, label, fam.name, fp, metric_obj, checked, source,

@@ -85,6 +85,7 @@ class LogRequest(_Body):
     metric: str | None = Field(None, max_length=64)
     better: Literal["higher", "lower"] | None = None
     name: str | None = Field(None, min_length=1, max_length=200)
+    file_name: str | None = Field(None, min_length=1, max_length=200)
     task: Task | None = None
     source: str = Field("log", pattern=r"^[a-z][a-z0-9_-]{0,31}$")
 
@@ -162,6 +163,9 @@ def _api_routes(api: FastAPI) -> None:
     api.post("/api/similar", summary="Nearest past datasets")(similar)
     api.post("/api/suggest", summary="Warm-start configurations")(suggest)
     api.post("/api/log", summary="Log a finished study (write token)")(log_study)
+    api.get("/api/records", summary="The datasets with their studies (kb list)")(records)
+    api.get("/api/records/{ref}", summary="One study or dataset (kb show)")(one_record)
+    api.delete("/api/records/{ref}", summary="Delete a study (write token)")(delete_record)
     api.get("/api/backtest/{family}", summary="Backtest of the ranking strategies")(
         backtest_summary)
     api.get("/api/check", summary="Integrity check")(check)
@@ -269,10 +273,26 @@ def log_study(body: LogRequest, request: Request) -> JSONResponse:
     study = _state(request).kb.log(
         fingerprint_of=_fingerprint(body.fingerprint), family=body.family, trials=body.trials,
         metric=body.metric, better=body.better, name=body.name, task=body.task,
-        source=body.source)
+        source=body.source, file_name=body.file_name)
     log.info("logged study %s (%s) for dataset %s", study.study_id, study.family,
              study.dataset_id)
     return _json(study.to_dict(), status=201)
+
+
+def records(request: Request) -> JSONResponse:
+    return _json(_state(request).kb.list_studies())
+
+
+def one_record(request: Request, ref: str) -> JSONResponse:
+    return _json(_state(request).kb.show(ref))
+
+
+def delete_record(request: Request, ref: str) -> JSONResponse:
+    # reached only with the write token (every DELETE needs it); the tombstone changes
+    # the state's cache key, so cached answers are recomputed without the study
+    out = _state(request).kb.delete(ref)
+    log.info("deleted study %s", out.get("study_id", ref))
+    return _json(out)
 
 
 def write_access(request: Request) -> JSONResponse:

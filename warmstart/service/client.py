@@ -202,11 +202,13 @@ class Client:
             source: str = "log") -> LoggedStudy:
         """See :meth:`KnowledgeBase.log`: sends the fingerprint and the trials only."""
         fp = query_fingerprint(data, target, task, fingerprint_of)
-        if name is None and isinstance(data, (str, os.PathLike)):
-            name = Path(data).stem  # the label the directory would give
+        # a new dataset is labelled by the file's name, as on the directory; a known one
+        # keeps its name unless ``name`` is given
+        file_name = Path(data).stem if isinstance(data, (str, os.PathLike)) else None
         body = {"fingerprint": fp.to_dict(), "family": family,
                 "trials": wire.trials_to_wire(trials), "metric": metric,
-                "better": better, "name": name, "task": task, "source": source}
+                "better": better, "name": name, "file_name": file_name, "task": task,
+                "source": source}
         return wire.logged_from_dict(self.request("POST", "/api/log", body))
 
     def check(self, repair: bool = False, grace_seconds: float | None = None) -> CheckReport:
@@ -247,15 +249,17 @@ class Client:
     def import_(self, file):
         self._directory_only("kb import")
 
-    # not served yet: the history's list/show/delete landed after the service's endpoints
-    def list_studies(self):
-        self._directory_only("kb list")
+    def list_studies(self) -> list[dict[str, Any]]:
+        """See :meth:`KnowledgeBase.list_studies`."""
+        return self.request("GET", "/api/records")
 
-    def show(self, ref):
-        self._directory_only("kb show")
+    def show(self, ref: str) -> dict[str, Any]:
+        """See :meth:`KnowledgeBase.show`."""
+        return self.request("GET", f"/api/records/{urllib.parse.quote(ref, safe='')}")
 
-    def delete(self, ref):
-        self._directory_only("kb delete")
+    def delete(self, ref: str) -> dict[str, Any]:
+        """See :meth:`KnowledgeBase.delete`; needs the write token."""
+        return self.request("DELETE", f"/api/records/{urllib.parse.quote(ref, safe='')}")
 
 
 def _space_spec(space) -> list | None:
