@@ -204,3 +204,23 @@ def test_choice_and_answer_read_at_most_max_pool_datasets(demo, monkeypatch):
     out = AutoChoice(candidates=(rec,), fallback=rec).propose(ctx, 3)
     nearest = {n.dataset_id for n in ctx.neighbours[:auto.MAX_POOL]}
     assert out and rec.seen[-1][1] <= nearest
+
+
+def test_the_choice_sample_is_stable_as_the_history_grows(demo, monkeypatch):
+    # A history one dataset smaller stands for the history before that dataset was logged.
+    ids = _ids(demo)
+    monkeypatch.setattr(auto, "MAX_POOL", auto.MIN_CHOICE_DATASETS + 1)
+    full = _context(demo, ids[0], exclude={ids[0]})
+    pool = auto.choice_pool(full)
+    assert len(pool) == auto.MAX_POOL < len(ids) - 1
+    outside = next(d for d in ids[1:] if d not in pool)
+    inside = pool[0]
+    before_outside = _context(demo, ids[0], exclude={ids[0], outside})
+    before_inside = _context(demo, ids[0], exclude={ids[0], inside})
+    chooser = AutoChoice()
+    # logging a dataset outside the sample keeps the sample and the cached choice valid
+    assert auto.choice_pool(before_outside) == pool
+    assert chooser._digest(before_outside) == chooser._digest(full)
+    # one that ranks into the sample changes both
+    assert inside not in auto.choice_pool(before_inside)
+    assert chooser._digest(before_inside) != chooser._digest(full)

@@ -23,7 +23,8 @@ fully nor ignores them).
 **Bounded cost.** The grid is small, at most ``MAX_CHOICE_DATASETS`` datasets are held
 out, and on a large history both the choice and the answer read at most ``MAX_POOL``
 datasets: the choice a seeded sample of the history (so it stays one choice per family
-and task, whatever the query), the answer the query's ``MAX_POOL`` nearest.
+and task, whatever the query, and a newly logged dataset outside the sample keeps the
+cached choice; see :func:`choice_pool`), the answer the query's ``MAX_POOL`` nearest.
 
 **Cache.** The choice depends only on the studies the context holds (ids are unique
 and studies are append-only), the family, task, metric, space, candidates and seed. It is
@@ -54,7 +55,7 @@ CHOICE_K = 5
 MIN_CHOICE_DATASETS = 8
 MAX_CHOICE_DATASETS = 20
 MAX_POOL = 200
-CACHE_VERSION = 1
+CACHE_VERSION = 2
 
 # The grid: the shipped portfolio, a wider softer one, the blend at three strengths
 # (1 = the dataset-agnostic list), nearest-best and the transfer forest.
@@ -110,10 +111,7 @@ class AutoChoice:
 
     # -- the choice ------------------------------------------------------------------------
     def _choose(self, ctx: SuggestContext) -> dict[str, Any]:
-        pool = sorted(set(ctx.studies["dataset_id"]) - _skipped(ctx))
-        if len(pool) > MAX_POOL:  # a seeded sample, the same for every query
-            rng = np.random.default_rng(ctx.seed)
-            ctx = _keep(ctx, rng.permutation(pool)[:MAX_POOL].tolist())
+        ctx = _keep(ctx, choice_pool(ctx))
         ids = _rankable(ctx)
         if len(ids) < MIN_CHOICE_DATASETS:
             return {"chosen": self.fallback.name, "datasets": len(ids), "regrets": {},
@@ -134,9 +132,9 @@ class AutoChoice:
                 "rule": f"lowest leave-one-dataset-out regret at {CHOICE_K}"}
 
     def _digest(self, ctx: SuggestContext) -> str:
-        skip = _skipped(ctx)
+        pool = set(choice_pool(ctx))
         sids = sorted(s for s, d in zip(ctx.studies["study_id"], ctx.studies["dataset_id"])
-                      if d not in skip)
+                      if d in pool)
         parts = [str(CACHE_VERSION), ctx.family.name, ctx.query.task, str(ctx.seed),
                  ",".join(sorted(set(ctx.studies["metric"]))), json.dumps(ctx.space.to_dict()),
                  "|".join(s.name for s in (*self.candidates, self.fallback)),
@@ -144,6 +142,21 @@ class AutoChoice:
                  "" if ctx.candidates is None else ",".join(sorted(ctx.candidate_keys)),
                  *sids]
         return hashlib.sha256("\n".join(parts).encode()).hexdigest()[:32]
+
+
+def choice_pool(ctx: SuggestContext) -> list[str]:
+    """The datasets the choice reads: all but the query's own, or on a large history the
+    ``MAX_POOL`` whose seeded hash of their id is smallest.
+
+    A hash rank, not a shuffle, so that the sample stays the same as the history grows:
+    a new dataset joins it only if its hash ranks among the smallest, and otherwise
+    leaves the cached choice valid (the digest covers only the sampled datasets).
+    """
+    pool = sorted(set(ctx.studies["dataset_id"]) - _skipped(ctx))
+    if len(pool) <= MAX_POOL:
+        return pool
+    rank = {d: hashlib.sha256(f"{ctx.seed}:{d}".encode()).hexdigest() for d in pool}
+    return sorted(sorted(pool, key=rank.__getitem__)[:MAX_POOL])
 
 
 def _keep(ctx: SuggestContext, dataset_ids: list[str]) -> SuggestContext:
